@@ -1,0 +1,1 @@
+//! Chebyshev series: fitting sampled functions and evaluating them with derivatives.

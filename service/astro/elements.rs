@@ -1,0 +1,1 @@
+//! Cartesian state <-> heliocentric ecliptic J2000 cometary elements, with Jacobians.

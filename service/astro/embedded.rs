@@ -1,0 +1,1 @@
+//! The embedded default ephemeris: analytic theories sampled into Chebyshev segments.

@@ -1,0 +1,1 @@
+//! Accelerations on the small body and their partial derivatives.

@@ -1,0 +1,1 @@
+//! Adaptive high-order integrator with dense output.

@@ -1,0 +1,1 @@
+//! Two-body motion in universal variables.

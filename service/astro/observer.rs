@@ -1,0 +1,1 @@
+//! Where the observer is: station sites and explicit positions.

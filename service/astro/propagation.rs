@@ -1,0 +1,1 @@
+//! Trajectories: a state and its partials at any epoch inside an arc.

@@ -1,0 +1,5 @@
+//! One typed configuration, loaded and validated at start.
+
+mod stations;
+
+pub use stations::{Station, StationList};

@@ -1,0 +1,1 @@
+//! Observation input: ADES PSV and XML, JSON lines, validation.

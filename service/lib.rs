@@ -1,0 +1,11 @@
+//! perihelix keeps a newly found small body's orbit right while
+//! observations keep coming in.
+//!
+//! Data moves one way: files -> observations -> solutions -> alerts.
+//! - [`astro`]: pure computation (time, frames, ephemerides, observers,
+//!   forces, integrator, elements); no I/O beyond an ephemeris file.
+//! - [`ingest`]: observation formats and their validation.
+//! - [`config`]: the one typed configuration.
+pub mod astro;
+pub mod config;
+pub mod ingest;
