@@ -807,6 +807,28 @@ mod tests {
     }
 
     #[test]
+    fn ecliptic_rotation_has_the_right_sense() {
+        // An orbit in the ICRF equator, moving east, seen from the J2000
+        // ecliptic: inclined by the obliquity, ascending node at longitude
+        // 180 deg (the equator passes north of the ecliptic at the autumnal
+        // equinox), from the geometry of the two planes.
+        let r = Vector3::new(1.0, 0.0, 0.0);
+        let v = Vector3::new(0.0, 0.017, 0.0);
+        let el =
+            CometaryElements::from_state(&StateVector::new(r, v), Epoch::J2000, gm::SUN).unwrap();
+        let eps = (OBLIQUITY_J2000_ARCSEC / 3600.0).to_radians();
+        assert!((el.i_rad - eps).abs() < 1e-15);
+        assert!(angle_diff(el.node_rad, PI) < 1e-15);
+        // And an orbit about the ecliptic pole, (0, -sin eps, cos eps) in
+        // the ICRF, has zero ecliptic inclination.
+        let pole = Vector3::new(0.0, -eps.sin(), eps.cos());
+        let v = 0.017 * pole.cross(&r);
+        let el =
+            CometaryElements::from_state(&StateVector::new(r, v), Epoch::J2000, gm::SUN).unwrap();
+        assert!(el.i_rad < 1e-15);
+    }
+
+    #[test]
     fn invalid_inputs_are_errors() {
         let r = Vector3::new(1.0, 0.0, 0.0);
         assert_eq!(
