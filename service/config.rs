@@ -13,6 +13,7 @@ use std::path::{Path, PathBuf};
 use serde::Serialize;
 use thiserror::Error;
 
+use crate::ingest::DesignationKey;
 use reader::{Source, TableReader};
 use stations::{in_range, positive};
 pub use stations::{load_stations, parse_stations, Station, StationList};
@@ -219,7 +220,7 @@ pub struct Config {
     pub leap_seconds_file: Option<PathBuf>,
     pub fit: FitSettings,
     /// Extra designation links: each group names one object.
-    pub links: Vec<Vec<String>>,
+    pub links: Vec<Vec<DesignationKey>>,
     pub api: ApiSettings,
     pub alerts: AlertSettings,
 }
@@ -389,10 +390,17 @@ fn read_config(top: &TableReader<'_, '_>, extra: &mut Vec<ConfigProblem>) -> Opt
     let mut links = Vec::new();
     for t in top.tables("link") {
         if let Some(group) = t.string_array("designations", true) {
+            let mut keys = Vec::with_capacity(group.len());
+            for text in &group {
+                match DesignationKey::parse(text) {
+                    Ok(k) => keys.push(k),
+                    Err(reason) => t.problem("designations", reason),
+                }
+            }
             if group.len() < 2 {
                 t.problem("designations", "a link needs at least two designations");
-            } else {
-                links.push(group);
+            } else if keys.len() == group.len() {
+                links.push(keys);
             }
         }
         t.finish();

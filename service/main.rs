@@ -1,12 +1,13 @@
 //! The `perihelix` command line: a thin layer over the library.
 
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
 use anyhow::Result;
 use clap::{Parser, Subcommand};
 
-use perihelix::config::Config;
+use perihelix::config::{load_stations, Config, ConfigError, StationList};
+use perihelix::ingest::DesignationKey;
 
 /// Keeps a small body's orbit right while observations keep coming in.
 ///
@@ -123,7 +124,12 @@ fn main() -> ExitCode {
 fn run(cli: Cli) -> Result<ExitCode> {
     match cli.command {
         Command::CheckConfig { file } => check_config(&file),
-        Command::Ingest { .. } => not_yet("ingest", "the observation readers"),
+        Command::Ingest {
+            files,
+            config,
+            stations,
+            json,
+        } => ingest(&files, config.as_deref(), stations.as_deref(), json),
         Command::Serve { .. } => not_yet("serve", "the daemon"),
         Command::Fit { .. } => not_yet("fit", "orbit determination"),
         Command::Predict { .. } => not_yet("predict", "orbit determination"),
@@ -132,7 +138,51 @@ fn run(cli: Cli) -> Result<ExitCode> {
     }
 }
 
-fn check_config(file: &std::path::Path) -> Result<ExitCode> {
+/// Stations and links from the configuration (if given), the station list
+/// overriding it (if given), else the shipped station list.
+fn stations_and_links(
+    config: Option<&Path>,
+    stations: Option<&Path>,
+) -> Result<(StationList, Vec<Vec<DesignationKey>>)> {
+    let cfg = config.map(Config::load).transpose()?;
+    let links = cfg.as_ref().map(|c| c.links.clone()).unwrap_or_default();
+    let list = match (stations, cfg) {
+        (Some(path), _) => load_stations(path).map_err(|problems| ConfigError { problems })?,
+        (None, Some(c)) => c.stations,
+        (None, None) => {
+            let shipped = Path::new("config/stations.toml");
+            if shipped.is_file() {
+                load_stations(shipped).map_err(|problems| ConfigError { problems })?
+            } else {
+                StationList::default()
+            }
+        }
+    };
+    Ok((list, links))
+}
+
+fn ingest(
+    files: &[PathBuf],
+    config: Option<&Path>,
+    stations: Option<&Path>,
+    json: bool,
+) -> Result<ExitCode> {
+    let (stations, links) = stations_and_links(config, stations)?;
+    let outcome = perihelix::ingest::ingest_files(files, &stations, &links);
+    if json {
+        println!("{}", serde_json::to_string_pretty(&outcome.summary)?);
+    } else {
+        print!("{}", outcome.summary);
+    }
+    // Rejected lines are reported, not fatal; a run that kept nothing is.
+    Ok(if outcome.summary.observations_kept == 0 {
+        ExitCode::FAILURE
+    } else {
+        ExitCode::SUCCESS
+    })
+}
+
+fn check_config(file: &Path) -> Result<ExitCode> {
     match Config::load(file) {
         Ok(cfg) => {
             println!(
