@@ -29,7 +29,13 @@ fn shipped_example_is_valid_and_complete() {
     );
     assert_eq!(
         cfg.links,
-        vec![vec!["P26zQa1".to_string(), "2026 ZA7".to_string()]]
+        vec![vec![
+            DesignationKey::TrkSub {
+                name: "P26zQa1".into(),
+                station: "ZQA".into()
+            },
+            DesignationKey::ProvId("2026 ZA7".into()),
+        ]]
     );
     assert_eq!(cfg.api.bind.port(), 8620);
 }
