@@ -482,7 +482,7 @@ fn read_fit(t: &TableReader<'_, '_>) -> Option<FitSettings> {
                     Err(reason) => t.problem("ladder", reason),
                 }
             }
-            if !rungs.first().is_some_and(|r| r == "gravity") {
+            if rungs.first().is_none_or(|r| r != "gravity") {
                 t.problem(
                     "ladder",
                     "the first rung must be \"gravity\": every model is compared with gravity alone",

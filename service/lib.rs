@@ -6,6 +6,11 @@
 //!   forces, integrator, elements); no I/O beyond an ephemeris file.
 //! - [`ingest`]: observation formats and their validation.
 //! - [`config`]: the one typed configuration.
+// Constants are written with the digits their sources print (DE440 GM
+// values, integrator coefficients), even where f64 keeps fewer: the text is
+// then checkable against the source.
+#![allow(clippy::excessive_precision)]
+
 pub mod astro;
 pub mod config;
 pub mod ingest;
