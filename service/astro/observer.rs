@@ -95,8 +95,8 @@ impl GeodeticSite {
     /// Earth-fixed geocentric position, km (ERFA `gd2gc`, WGS84).
     pub fn itrs_km(&self) -> Vector3<f64> {
         let (a, f) = erfa::Ellipsoid::WGS84.get_params();
-        // The inner form only fails for d <= 0, impossible for |lat| <= 90
-        // and 0 < f < 1; fall back to the bare formula's value regardless.
+        // ERFA refuses only a zero-size ellipsoid term, impossible for a
+        // validated latitude and the WGS84 flattening; NaN would show at once.
         let xyz = erfa::transform::geodetic_to_geocentric_inner(
             a,
             f,
@@ -158,7 +158,7 @@ pub struct GeocentricState {
 /// GCRS state of an Earth-fixed point: r = NPB^T R3(-GAST) r_ITRS and
 /// v = omega x r, omega along the celestial pole of date.
 pub fn earth_fixed_to_gcrs(itrs_km: &Vector3<f64>, at: &ScaledInstant) -> GeocentricState {
-    let orientation = EarthOrientation::at(at.ut1, at.tt);
+    let orientation = EarthOrientation::at(at.ut1(), at.tt());
     let position_km = orientation.terrestrial_to_celestial() * itrs_km;
     let velocity_km_s = orientation
         .angular_velocity_gcrs_rad_s()
@@ -191,7 +191,7 @@ pub fn observer_barycentric_state(
     at: &ScaledInstant,
     ephemeris: &dyn Ephemeris,
 ) -> Result<StateVector, ObserverError> {
-    let earth = ephemeris.state(Body::Earth, at.tdb)?;
+    let earth = ephemeris.state(Body::Earth, at.tdb())?;
     let geo = geocentric_state(position, at);
     Ok(StateVector::new(
         earth.position_au + geo.position_km / AU_KM,

@@ -473,6 +473,32 @@ impl UtcTime {
         })
     }
 
+    /// From calendar fields with whole seconds (60 for a leap second) and
+    /// nanoseconds, the way ADES readers hold a time.
+    pub fn from_calendar_nanos(
+        year: i64,
+        month: u32,
+        day: u32,
+        hour: u32,
+        minute: u32,
+        second: u32,
+        nanos: u32,
+    ) -> Result<Self, TimeError> {
+        if nanos >= 1_000_000_000 {
+            return Err(TimeError::InvalidCalendar {
+                reason: format!("{nanos} ns is not below one second"),
+            });
+        }
+        Self::from_calendar(
+            year,
+            month,
+            day,
+            hour,
+            minute,
+            f64::from(second) + f64::from(nanos) * 1e-9,
+        )
+    }
+
     /// From a UTC day (MJD) and the seconds into it (below 86 401).
     pub fn from_mjd_seconds(mjd: i64, seconds_of_day: f64) -> Result<Self, TimeError> {
         if !(seconds_of_day.is_finite() && (0.0..86_401.0).contains(&seconds_of_day)) {
@@ -642,15 +668,38 @@ impl JulianDate {
 /// precession-nutation, UT1 for the Earth's rotation, and the UTC reading.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct ScaledInstant {
-    pub utc: UtcTime,
-    pub tdb: Epoch,
+    utc: UtcTime,
+    tdb: Epoch,
+    tt: JulianDate,
+    ut1: JulianDate,
+    dut1_s: f64,
+}
+
+impl ScaledInstant {
+    /// The UTC reading.
+    pub fn utc(&self) -> UtcTime {
+        self.utc
+    }
+
+    pub fn tdb(&self) -> Epoch {
+        self.tdb
+    }
+
     /// TT as (J2000, days since J2000 TT).
-    pub tt: JulianDate,
+    pub fn tt(&self) -> JulianDate {
+        self.tt
+    }
+
     /// UT1 as (0h of the UTC day, fraction of a day), ERFA's best split for
     /// the Earth rotation angle.
-    pub ut1: JulianDate,
+    pub fn ut1(&self) -> JulianDate {
+        self.ut1
+    }
+
     /// The UT1 - UTC that went into `ut1`, in seconds (0 when none given).
-    pub dut1_s: f64,
+    pub fn dut1_s(&self) -> f64 {
+        self.dut1_s
+    }
 }
 
 /// Converts between UTC, TAI, TT, UT1 and TDB with one leap-second table.
@@ -1078,6 +1127,11 @@ mod tests {
         assert_eq!(leap.to_iso8601(3), "2017-01-01T00:00:00.000Z");
         assert_eq!(leap.to_iso8601(2), "2017-01-01T00:00:00.00Z");
         let leap_mid = UtcTime::parse_iso8601("2016-12-31T23:59:60.24Z").unwrap();
+        assert_eq!(
+            UtcTime::from_calendar_nanos(2016, 12, 31, 23, 59, 60, 240_000_000).unwrap(),
+            leap_mid
+        );
+        assert!(UtcTime::from_calendar_nanos(2016, 12, 31, 23, 59, 59, 1_000_000_000).is_err());
         assert_eq!(leap_mid.to_iso8601(1), "2016-12-31T23:59:60.2Z");
         for junk in [
             "2031-02-29T00:00:00Z",
