@@ -250,8 +250,8 @@ mod tests {
     #[test]
     fn parse_spellings() {
         assert_eq!(
-            DesignationKey::parse("trkSub:qx01@Z99"),
-            Ok(trk("qx01", "Z99"))
+            DesignationKey::parse("trkSub:qx01@XQ1"),
+            Ok(trk("qx01", "XQ1"))
         );
         assert_eq!(
             DesignationKey::parse("provID:2031 QA7"),
@@ -265,15 +265,15 @@ mod tests {
     #[test]
     fn ids_stay_with_the_earliest_key() {
         let mut l = Linker::new(&[]);
-        let a = l.object_of(&trk("qx01", "Z99"));
-        let b = l.object_of(&trk("qx01", "Z98"));
+        let a = l.object_of(&trk("qx01", "XQ1"));
+        let b = l.object_of(&trk("qx01", "XQ2"));
         assert_ne!(a, b, "a trkSub is unique only per station");
         let p = DesignationKey::ProvId("2031 QA7".into());
-        l.link_all(&[trk("qx01", "Z98"), p.clone()]);
+        l.link_all(&[trk("qx01", "XQ2"), p.clone()]);
         assert_eq!(l.object_of(&p), b);
-        l.link_all(&[p.clone(), trk("qx01", "Z99")]);
+        l.link_all(&[p.clone(), trk("qx01", "XQ1")]);
         assert_eq!(l.object_of(&p), a, "merged group keeps the older id");
-        assert_eq!(l.object_of(&trk("qx01", "Z98")), a);
+        assert_eq!(l.object_of(&trk("qx01", "XQ2")), a);
         assert_eq!(l.absorbed().last(), Some(&(b.clone(), a.clone())));
         assert_eq!(l.designations(&a).len(), 3);
     }

@@ -310,19 +310,27 @@ impl<'a, F: FnMut(Result<Observation, Rejection>)> Reader<'a, F> {
         }
         let mut text = RecordText::with_capacity(line.len());
         let mut offsets = [0u32; FIELD_COUNT];
+        // One pass over the bytes: '|' is ASCII, so every split point is a
+        // char boundary, and short fields are not worth a memchr call each.
+        let bytes = line.as_bytes();
         let mut found = 0;
         let mut start = 0usize;
-        for piece in line.split('|') {
+        for end in (0..=bytes.len()).filter(|&i| i == bytes.len() || bytes[i] == b'|') {
             if let Some(&Role::Kept(f)) = block.columns.get(found) {
-                let value = piece.trim_ascii();
-                if !value.is_empty() {
-                    let lead = piece.len() - piece.trim_ascii_start().len();
-                    offsets[f as usize] = (start + lead) as u32;
-                    text.set(f, value);
+                let (mut a, mut b) = (start, end);
+                while a < b && bytes[a].is_ascii_whitespace() {
+                    a += 1;
+                }
+                while b > a && bytes[b - 1].is_ascii_whitespace() {
+                    b -= 1;
+                }
+                if a < b {
+                    offsets[f as usize] = a as u32;
+                    text.set(f, &line[a..b]);
                 }
             }
             found += 1;
-            start += piece.len() + 1;
+            start = end + 1;
         }
         let keywords = block.columns.len();
         if found > keywords {
@@ -362,7 +370,7 @@ mod tests {
     use crate::config::Station;
 
     fn stations() -> StationList {
-        StationList::new(["Z99", "Z98"].map(|c| Station {
+        StationList::new(["XQ1", "XQ2"].map(|c| Station {
             code: c.into(),
             name: "Invented".into(),
             longitude_deg: 0.0,
@@ -383,9 +391,9 @@ mod tests {
 
     #[test]
     fn reads_a_padded_block() {
-        let text = "# version=2022\n# observatory\n! mpcCode Z99\n# submitter\n! name A. Nobody\n\
+        let text = "# version=2022\n# observatory\n! mpcCode XQ1\n# submitter\n! name A. Nobody\n\
 permID |trkSub  |mode|stn |obsTime                |ra         |dec        |astCat\n\
-       |  qx01  | CCD|Z99 |2026-03-14T05:12:33.25Z|215.65605  |-13.547872 |Gaia3\n";
+       |  qx01  | CCD|XQ1 |2026-03-14T05:12:33.25Z|215.65605  |-13.547872 |Gaia3\n";
         let (ok, bad) = read(text);
         assert!(bad.is_empty(), "{bad:?}");
         assert_eq!(ok.len(), 1);
@@ -397,12 +405,12 @@ permID |trkSub  |mode|stn |obsTime                |ra         |dec        |astCa
 
     #[test]
     fn column_of_bad_field() {
-        let text = "# version=2017\ntrkSub|mode|stn|obsTime|ra|dec|astCat\nqx01|CCD|Z99|2026-03-14T05:12:33Z|215.6|91.2|Gaia3\n";
+        let text = "# version=2017\ntrkSub|mode|stn|obsTime|ra|dec|astCat\nqx01|CCD|XQ1|2026-03-14T05:12:33Z|215.6|91.2|Gaia3\n";
         let (_, bad) = read(text);
         assert_eq!(bad.len(), 1);
         assert_eq!(bad[0].line, 3);
         assert_eq!(bad[0].field.as_deref(), Some("dec"));
-        // "qx01|CCD|Z99|2026-03-14T05:12:33Z|215.6|" is 40 characters.
+        // "qx01|CCD|XQ1|2026-03-14T05:12:33Z|215.6|" is 40 characters.
         assert_eq!(bad[0].column, Some(41));
     }
 }

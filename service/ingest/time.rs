@@ -4,7 +4,28 @@
 //! time says exactly what is wrong with it, and so that the hot path of the
 //! PSV reader stays a few dozen byte comparisons.
 
-use hifitime::Epoch;
+use std::cell::Cell;
+
+use hifitime::{Duration, Epoch};
+
+thread_local! {
+    /// The last calendar day seen and its UTC midnight: observations come in
+    /// runs from one night, and building an epoch from a full date is the
+    /// costliest step of reading a line.
+    static LAST_DAY: Cell<Option<(i32, u32, u32, Epoch)>> = const { Cell::new(None) };
+}
+
+/// UTC midnight of a day, from hifitime (which knows the leap seconds).
+fn midnight(year: i32, month: u32, day: u32) -> Option<Epoch> {
+    if let Some((y, m, d, e)) = LAST_DAY.get() {
+        if (y, m, d) == (year, month, day) {
+            return Some(e);
+        }
+    }
+    let e = Epoch::maybe_from_gregorian_utc(year, month as u8, day as u8, 0, 0, 0, 0).ok()?;
+    LAST_DAY.set(Some((year, month, day, e)));
+    Some(e)
+}
 
 /// A UTC instant as read: the hifitime epoch (UTC scale, built from the
 /// calendar components) with its nanoseconds exact.
@@ -125,7 +146,25 @@ pub fn parse_utc(text: &str) -> Result<UtcTime, String> {
     if second > 60 {
         return Err(format!("second {second} is outside 0-60"));
     }
-    // hifitime knows the leap-second days and refuses second 60 elsewhere.
+    // Within a day without a leap second, the epoch is the day's midnight
+    // plus the time of day; a leap second goes to hifitime itself, which
+    // knows the leap-second days and refuses second 60 elsewhere.
+    if second < 60 {
+        if let Some(day_start) = midnight(year, month, day) {
+            let ns =
+                i128::from(hour * 3600 + minute * 60 + second) * 1_000_000_000 + i128::from(nanos);
+            return Ok(UtcTime {
+                epoch: day_start + Duration::from_total_nanoseconds(ns),
+                year,
+                month: month as u8,
+                day: day as u8,
+                hour: hour as u8,
+                minute: minute as u8,
+                second: second as u8,
+                nanos,
+            });
+        }
+    }
     let epoch = Epoch::maybe_from_gregorian_utc(
         year,
         month as u8,
@@ -173,6 +212,33 @@ mod tests {
         assert_eq!(t.nanos, 123_456_700);
         let t = parse_utc("2016-02-29T12:38:34Z").unwrap();
         assert_eq!(t.nanos, 0);
+    }
+
+    #[test]
+    fn day_cache_agrees_with_hifitime() {
+        // The fast path (midnight + time of day) must give exactly the
+        // epoch hifitime builds from all the components.
+        for (text, c) in [
+            (
+                "2026-03-14T05:12:33.25Z",
+                (2026, 3, 14, 5, 12, 33, 250_000_000),
+            ),
+            (
+                "2026-03-14T23:59:59.999999999Z",
+                (2026, 3, 14, 23, 59, 59, 999_999_999),
+            ),
+            (
+                "2016-12-31T23:59:59.5Z",
+                (2016, 12, 31, 23, 59, 59, 500_000_000),
+            ),
+            ("2017-01-01T00:00:00Z", (2017, 1, 1, 0, 0, 0, 0)),
+            ("1972-07-01T12:00:00Z", (1972, 7, 1, 12, 0, 0, 0)),
+        ] {
+            let t = parse_utc(text).unwrap();
+            let direct = Epoch::from_gregorian_utc(c.0, c.1, c.2, c.3, c.4, c.5, c.6);
+            assert_eq!(t.epoch, direct, "{text}");
+            assert_eq!(t.epoch.to_gregorian_utc(), c, "{text}");
+        }
     }
 
     #[test]

@@ -313,7 +313,7 @@ mod tests {
 
     fn stations() -> StationList {
         StationList::new([Station {
-            code: "Z99".into(),
+            code: "XQ1".into(),
             name: "Invented Hill".into(),
             longitude_deg: 10.0,
             latitude_deg: 45.0,
@@ -327,7 +327,7 @@ mod tests {
         for (f, s) in [
             (Field::TrkSub, "qx01"),
             (Field::Mode, "CCD"),
-            (Field::Stn, "Z99"),
+            (Field::Stn, "XQ1"),
             (Field::ObsTime, "2026-03-14T05:12:33.25Z"),
             (Field::Ra, "215.65605"),
             (Field::Dec, "-13.547872"),
@@ -368,7 +368,7 @@ mod tests {
     fn good_record_builds() {
         let o = run(good()).unwrap();
         assert_eq!(o.ra_deg, 215.65605);
-        assert_eq!(o.station(), "Z99");
+        assert_eq!(o.station(), "XQ1");
         assert_eq!(o.location, None);
     }
 

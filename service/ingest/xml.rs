@@ -178,18 +178,25 @@ where
         Ok(d) => d,
         Err(e) => {
             let p = e.pos();
-            let problem = match e {
+            let (problem, line, column) = match e {
+                // The parser reports where the element started; the file
+                // ends on its last line, which is where to look.
                 roxmltree::Error::UnexpectedEndOfStream | roxmltree::Error::UnclosedRootNode => {
-                    Problem::Truncated
+                    let last = text.trim_end().lines().count().max(1) as u32;
+                    (Problem::Truncated, last, None)
                 }
-                other => Problem::Syntax {
-                    why: other.to_string(),
-                },
+                other => (
+                    Problem::Syntax {
+                        why: other.to_string(),
+                    },
+                    p.row,
+                    Some(p.col),
+                ),
             };
             sink(Err(Rejection {
                 file: file.to_string(),
-                line: p.row,
-                column: Some(p.col),
+                line,
+                column,
                 field: None,
                 problem,
             }));
