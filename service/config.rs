@@ -13,6 +13,7 @@ use std::path::{Path, PathBuf};
 use serde::Serialize;
 use thiserror::Error;
 
+use crate::astro::time::{LeapSecondTable, TimeError};
 use crate::ingest::DesignationKey;
 use reader::{Source, TableReader};
 use stations::{in_range, positive};
@@ -365,11 +366,18 @@ fn read_config(top: &TableReader<'_, '_>, extra: &mut Vec<ConfigProblem>) -> Opt
                 }
             };
             if let Some(l) = &leap {
-                if !l.is_file() {
-                    t.problem(
-                        "leap_seconds_file",
-                        format!("no leap-second file at {}", l.display()),
-                    );
+                // Read it now, so a bad table stops the start, not a refit.
+                match LeapSecondTable::from_file(l) {
+                    Ok(_) => {}
+                    Err(TimeError::LeapFileLine { path, line, reason }) => {
+                        extra.push(ConfigProblem {
+                            file: PathBuf::from(path),
+                            line,
+                            key: String::new(),
+                            reason,
+                        })
+                    }
+                    Err(e) => t.problem("leap_seconds_file", e.to_string()),
                 }
             }
             t.finish();

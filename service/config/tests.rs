@@ -156,3 +156,21 @@ fn api_beyond_loopback_needs_a_token() {
     let err = Config::load(&path).unwrap_err();
     assert!(err.to_string().contains("needs a token"), "{err}");
 }
+
+#[test]
+fn a_bad_leap_second_table_is_reported_at_its_own_line() {
+    let dir = tempfile::tempdir().unwrap();
+    // IETF leap-seconds.list layout: NTP seconds, TAI-UTC, comment.
+    std::fs::write(
+        dir.path().join("leap.list"),
+        "# test table\n2272060800\t10\t# 1 Jan 1972\nnot-a-number\t11\n",
+    )
+    .unwrap();
+    let text = "[directories]\nincoming = \"a\"\narchive = \"b\"\nrejected = \"c\"\ndatabase = \"d\"\n[ephemeris]\nleap_seconds_file = \"leap.list\"\n";
+    let path = dir.path().join("config.toml");
+    std::fs::write(&path, text).unwrap();
+    let err = Config::load(&path).unwrap_err();
+    assert_eq!(err.problems.len(), 1, "{err}");
+    assert!(err.problems[0].file.ends_with("leap.list"), "{err}");
+    assert_eq!(err.problems[0].line, 3, "{err}");
+}
