@@ -13,4 +13,5 @@
 
 pub mod astro;
 pub mod config;
+pub mod fit;
 pub mod ingest;

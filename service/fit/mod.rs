@@ -1,0 +1,14 @@
+//! Orbit determination: from astrometric observations to an orbit with
+//! its uncertainty.
+//!
+//! - [`observe`]: the observation model (light time, RA/Dec, residuals and
+//!   their partials with respect to the fitted parameters).
+//! - [`weights`]: each observation's 2 x 2 covariance.
+//!
+//! Nothing here reads files or knows about the store: the caller turns its
+//! records into [`observe::AstrometricObservation`]s.
+pub mod observe;
+pub mod weights;
+
+#[cfg(test)]
+pub(crate) mod test_support;
