@@ -341,6 +341,11 @@ impl ForceModel {
             partials.d_position += dr;
             partials.d_velocity += dv;
             partials.d_parameters = columns;
+            if let Some(lagged) = at.lagged_distance_au {
+                // a_NG = g(r_lag) D, so d a / d r_lag = D g (d ln g / dr).
+                let (_, log_slope) = ng.law.g_and_log_slope(lagged);
+                partials.d_lagged_distance = a_ng * log_slope;
+            }
         }
         (a, partials)
     }
@@ -356,6 +361,10 @@ pub struct AccelerationPartials {
     /// d a / d A_i for the free A_i in the order A1, A2, A3 (dimensionless:
     /// g(r) times a unit vector). Only the first `parameter_count` are used.
     pub d_parameters: ParameterColumns,
+    /// d a / d |r(t - DT)| (1/day^2) when the non-gravitational law uses a
+    /// lagged distance (zero otherwise): the caller chains it with the
+    /// dependence of that distance on whatever it estimates.
+    pub d_lagged_distance: Vector3<f64>,
 }
 
 impl AccelerationPartials {
@@ -364,6 +373,7 @@ impl AccelerationPartials {
             d_position: Matrix3::zeros(),
             d_velocity: Matrix3::zeros(),
             d_parameters: ParameterColumns::default(),
+            d_lagged_distance: Vector3::zeros(),
         }
     }
 }
@@ -414,8 +424,9 @@ impl PerturberPositions {
     }
 
     /// The distance |r(t - DT)| for the non-gravitational law. Without it
-    /// the law uses the current distance. Being a given function of time,
-    /// it contributes nothing to the partials.
+    /// the law uses the current distance. The partials with respect to r
+    /// then leave g out; its dependence on the lagged distance is reported
+    /// separately ([`AccelerationPartials::d_lagged_distance`]).
     pub fn with_lagged_distance(mut self, r_au: f64) -> Self {
         self.lagged_distance_au = Some(r_au);
         self
