@@ -194,8 +194,8 @@ impl Trajectory {
         (self.start, self.end)
     }
 
-    /// Steps and force evaluations of the whole integration (both
-    /// directions, and the reference run when DT is set is not included).
+    /// Steps and force evaluations of the integration, both directions.
+    /// The gravity-only reference run made when DT is set is not counted.
     pub fn stats(&self) -> IntegrationStats {
         self.stats
     }
