@@ -172,6 +172,8 @@ pub enum ForceModelError {
     BadParameter { index: usize, value: f64 },
     #[error("the time offset DT = {dt_days} days is not finite")]
     BadTimeOffset { dt_days: f64 },
+    #[error("the central GM must be a positive number of au^3/day^2, got {gm}")]
+    BadCentralGm { gm: f64 },
 }
 
 /// Which forces act on the small body.
@@ -180,6 +182,9 @@ pub struct ForceModel {
     perturbers: Vec<Body>,
     relativity: bool,
     nongrav: Option<NonGravModel>,
+    /// GM of the central term: the Sun's, unless a body is integrated that
+    /// itself has mass (a planet's mass joins the central term).
+    central_gm: f64,
 }
 
 impl ForceModel {
@@ -218,6 +223,7 @@ impl ForceModel {
             perturbers: perturbers.to_vec(),
             relativity,
             nongrav,
+            central_gm: gm::SUN,
         })
     }
 
@@ -227,6 +233,7 @@ impl ForceModel {
             perturbers: Vec::new(),
             relativity: false,
             nongrav: None,
+            central_gm: gm::SUN,
         }
     }
 
@@ -236,12 +243,38 @@ impl ForceModel {
             perturbers: Body::PERTURBERS.to_vec(),
             relativity: true,
             nongrav: None,
+            central_gm: gm::SUN,
         }
     }
 
     /// This model with a non-gravitational term added (validated).
     pub fn with_nongrav(self, nongrav: NonGravModel) -> Result<Self, ForceModelError> {
-        Self::new(&self.perturbers, self.relativity, Some(nongrav))
+        let central_gm = self.central_gm;
+        Ok(Self {
+            central_gm,
+            ..Self::new(&self.perturbers, self.relativity, Some(nongrav))?
+        })
+    }
+
+    /// This model with GM `gm_au3_per_day2` in the central term instead of
+    /// the Sun's alone: for integrating a body with a mass of its own, whose
+    /// heliocentric motion feels the Sun's GM plus its own. The relativistic
+    /// term keeps the Sun's GM.
+    pub fn with_central_gm(self, gm_au3_per_day2: f64) -> Result<Self, ForceModelError> {
+        if !(gm_au3_per_day2.is_finite() && gm_au3_per_day2 > 0.0) {
+            return Err(ForceModelError::BadCentralGm {
+                gm: gm_au3_per_day2,
+            });
+        }
+        Ok(Self {
+            central_gm: gm_au3_per_day2,
+            ..self
+        })
+    }
+
+    /// GM of the central term, au^3/day^2.
+    pub fn central_gm(&self) -> f64 {
+        self.central_gm
     }
 
     /// This model without its non-gravitational term.
@@ -250,6 +283,7 @@ impl ForceModel {
             perturbers: self.perturbers.clone(),
             relativity: self.relativity,
             nongrav: None,
+            central_gm: self.central_gm,
         }
     }
 
@@ -297,7 +331,7 @@ impl ForceModel {
         r: &Vector3<f64>,
         v: &Vector3<f64>,
     ) -> Vector3<f64> {
-        let mut a = central(r);
+        let mut a = central(self.central_gm, r);
         for (gm_p, r_p) in at.iter() {
             a += planet_direct(gm_p, r_p, r) - r_p * (gm_p / r_p.norm().powi(3));
         }
@@ -322,8 +356,8 @@ impl ForceModel {
         v: &Vector3<f64>,
     ) -> (Vector3<f64>, AccelerationPartials) {
         let mut partials = AccelerationPartials::zero();
-        let mut a = central(r);
-        partials.d_position += central_gradient(r);
+        let mut a = central(self.central_gm, r);
+        partials.d_position += point_mass_gradient(self.central_gm, r);
         for (gm_p, r_p) in at.iter() {
             a += planet_direct(gm_p, r_p, r) - r_p * (gm_p / r_p.norm().powi(3));
             // The indirect term does not depend on the small body.
@@ -444,16 +478,12 @@ impl PerturberPositions {
     }
 }
 
-fn central(r: &Vector3<f64>) -> Vector3<f64> {
-    r * (-gm::SUN / r.norm().powi(3))
+fn central(mu: f64, r: &Vector3<f64>) -> Vector3<f64> {
+    r * (-mu / r.norm().powi(3))
 }
 
-/// d/dr of -mu r/|r|^3 = -mu (I/|r|^3 - 3 r r^T/|r|^5).
-fn central_gradient(r: &Vector3<f64>) -> Matrix3<f64> {
-    point_mass_gradient(gm::SUN, r)
-}
-
-/// Gradient of -mu d/|d|^3 with respect to d.
+/// Gradient of -mu d/|d|^3 with respect to d:
+/// -mu (I/|d|^3 - 3 d d^T/|d|^5).
 fn point_mass_gradient(mu: f64, d: &Vector3<f64>) -> Matrix3<f64> {
     let d2 = d.norm_squared();
     let inv3 = 1.0 / (d2 * d2.sqrt());
