@@ -1,1 +1,0 @@
-//! The embedded default ephemeris: analytic theories sampled into Chebyshev segments.
