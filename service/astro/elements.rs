@@ -24,6 +24,7 @@ use thiserror::Error;
 
 use super::constants::{AU_KM, OBLIQUITY_J2000_ARCSEC, SECONDS_PER_DAY};
 use super::ephemeris::StateVector;
+use super::frames::icrf_to_ecliptic_matrix;
 use super::kepler::{self, KeplerError, UniversalFunctions};
 use super::time::Epoch;
 
@@ -293,13 +294,6 @@ pub fn conic_state_partials(c: &ConicElements, mu: f64) -> Result<Matrix6<f64>, 
     Ok(jac)
 }
 
-/// ICRF -> J2000 ecliptic: rotation about x by the obliquity.
-fn icrf_to_ecliptic() -> Matrix3<f64> {
-    let eps = (OBLIQUITY_J2000_ARCSEC / 3600.0).to_radians();
-    let (s, c) = eps.sin_cos();
-    Matrix3::new(1.0, 0.0, 0.0, 0.0, c, s, 0.0, -s, c)
-}
-
 /// The position and velocity blocks rotated alike.
 fn rotate_state_matrix(rot: &Matrix3<f64>) -> Matrix6<f64> {
     let mut m = Matrix6::zeros();
@@ -341,7 +335,7 @@ impl CometaryElements {
         epoch: Epoch,
         gm_au3_per_day2: f64,
     ) -> Result<Self, ElementsError> {
-        let rot = icrf_to_ecliptic();
+        let rot = icrf_to_ecliptic_matrix();
         let osc = conic_from_vectors(
             &(rot * state.position_au),
             &(rot * state.velocity_au_per_day),
@@ -382,7 +376,7 @@ impl CometaryElements {
     /// Heliocentric ICRF state at `t` on the same two-body conic.
     pub fn state_at(&self, t: Epoch) -> Result<StateVector, ElementsError> {
         let (r, v) = vectors_from_conic(&self.conic_at(t), self.gm_au3_per_day2)?;
-        let back = icrf_to_ecliptic().transpose();
+        let back = icrf_to_ecliptic_matrix().transpose();
         Ok(StateVector::new(back * r, back * v))
     }
 
@@ -403,7 +397,7 @@ impl CometaryElements {
     /// [`ELEMENT_NAMES`] order, rows x, y, z (au), vx, vy, vz (au/day).
     pub fn state_partials(&self) -> Result<Matrix6<f64>, ElementsError> {
         let jac = conic_state_partials(&self.conic_at(self.epoch), self.gm_au3_per_day2)?;
-        Ok(rotate_state_matrix(&icrf_to_ecliptic().transpose()) * jac)
+        Ok(rotate_state_matrix(&icrf_to_ecliptic_matrix().transpose()) * jac)
     }
 
     /// Elements of a heliocentric ICRF state with the Jacobian
