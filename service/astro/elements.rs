@@ -16,13 +16,13 @@
 //! - for an exactly circular orbit (e = 0) the perihelion is put at the node.
 //!
 //! The frame conversion is the bare rotation about x by the J2000 obliquity
-//! [`OBLIQUITY_J2000_ARCSEC`]; the ICRF-to-J2000 frame bias (about 23 mas)
+//! [`OBLIQUITY_J2000_ARCSEC`](super::constants::OBLIQUITY_J2000_ARCSEC); the ICRF-to-J2000 frame bias (about 23 mas)
 //! is not applied, which is the usual convention for small-body elements.
 
 use nalgebra::{Matrix3, Matrix6, Vector3};
 use thiserror::Error;
 
-use super::constants::{AU_KM, OBLIQUITY_J2000_ARCSEC, SECONDS_PER_DAY};
+use super::constants::{AU_KM, SECONDS_PER_DAY};
 use super::ephemeris::StateVector;
 use super::frames::icrf_to_ecliptic_matrix;
 use super::kepler::{self, KeplerError, UniversalFunctions};
@@ -477,7 +477,7 @@ impl CometaryElements {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::astro::constants::gm;
+    use crate::astro::constants::{gm, OBLIQUITY_J2000_ARCSEC};
     use std::f64::consts::{PI, TAU};
 
     /// Vallado prints p and a to 1e-3 km, e to 1e-6, angles to 1e-3 or
