@@ -4,10 +4,13 @@
 //! - [`observe`]: the observation model (light time, RA/Dec, residuals and
 //!   their partials with respect to the fitted parameters).
 //! - [`weights`]: each observation's 2 x 2 covariance.
+//! - [`input`]: observation records to fitter observations (time scales,
+//!   observer places).
 //! - [`lsq`]: differential correction with outlier rejection and covariance.
 //!
 //! Nothing here reads files or knows about the store: the caller turns its
 //! records into [`observe::AstrometricObservation`]s.
+pub mod input;
 pub mod lsq;
 pub mod observe;
 pub mod weights;
