@@ -25,18 +25,18 @@ pub enum InputError {
         line: u32,
         station: String,
     },
-    #[error("{file}:{line}: station {station}: {source}")]
+    #[error("{file}:{line}: station {station}: {reason}")]
     Site {
         file: String,
         line: u32,
         station: String,
-        source: ObserverError,
+        reason: String,
     },
-    #[error("{file}:{line}: obsTime: {source}")]
+    #[error("{file}:{line}: obsTime: {reason}")]
     Time {
         file: String,
         line: u32,
-        source: TimeError,
+        reason: String,
     },
     #[error(
         "{file}:{line}: ctr: observer positions centred on body {center} are not supported \
@@ -68,17 +68,17 @@ pub fn astrometric(
         t.nanos,
     )
     .and_then(|utc| scales.resolve_utc(&utc, None))
-    .map_err(|source| InputError::Time {
+    .map_err(|e: TimeError| InputError::Time {
         file: file(),
         line,
-        source,
+        reason: e.to_string(),
     })?;
     let station = observation.station();
-    let site_error = |source| InputError::Site {
+    let site_error = |e: ObserverError| InputError::Site {
         file: file(),
         line,
         station: station.to_string(),
-        source,
+        reason: e.to_string(),
     };
     let observer = match observation.location {
         Some(ObserverLocation::Geodetic {

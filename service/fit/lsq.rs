@@ -89,10 +89,14 @@ pub enum Termination {
     /// The iteration limit was reached before the step became small.
     MaxIterations,
     /// No damping could make chi^2 fall (or every trial orbit failed).
-    Diverged { reason: String },
+    Diverged {
+        reason: String,
+    },
     /// The whitened Jacobian is (numerically) rank deficient: the data do
     /// not determine every parameter.
-    Singular { condition_number: f64 },
+    Singular {
+        condition_number: f64,
+    },
     /// Rejection and recovery kept changing the used set.
     OutlierCycle,
 }
@@ -105,6 +109,8 @@ pub enum FitError {
         rows: usize,
         parameters: usize,
     },
+    #[error("{flags} used-set flags for {observations} observations")]
+    UsedSetLength { flags: usize, observations: usize },
     #[error("observation {index}: {source}")]
     Observer { index: usize, source: ObserveError },
     #[error("the starting orbit cannot be evaluated: {0}")]
@@ -210,9 +216,7 @@ impl Setup<'_> {
             Vector3::new(q[3], q[4], q[5]),
         );
         // A bad A_i is refused by the model; that trial orbit is unusable.
-        let model = self
-            .model_with(q)
-            .map_err(|_| ObserveError::ZeroDistance)?;
+        let model = self.model_with(q).map_err(|_| ObserveError::ZeroDistance)?;
         let settings = PropagationSettings {
             partials,
             ..self.settings.propagation
@@ -285,7 +289,8 @@ fn whitened_system(
     let mut row = 0;
     for i in (0..used.len()).filter(|i| used[*i]) {
         let w = DMatrix::from_column_slice(2, 2, whiten[i].as_slice());
-        a.view_mut((row, 0), (2, n)).copy_from(&(&w * &e.partials[i]));
+        a.view_mut((row, 0), (2, n))
+            .copy_from(&(&w * &e.partials[i]));
         b.rows_mut(row, 2).copy_from(&(whiten[i] * e.residuals[i]));
         row += 2;
     }
@@ -308,7 +313,11 @@ fn linearise(a: &DMatrix<f64>, b: &DVector<f64>) -> Linearised {
     let s = &svd.singular_values;
     let s_max = s.max();
     let s_min = s.min();
-    let condition_number = if s_min > 0.0 { s_max / s_min } else { f64::INFINITY };
+    let condition_number = if s_min > 0.0 {
+        s_max / s_min
+    } else {
+        f64::INFINITY
+    };
     let (u, v_t) = match (&svd.u, &svd.v_t) {
         (Some(u), Some(v_t)) => (u, v_t),
         // Both were asked for; without them nothing can be solved.
@@ -473,17 +482,38 @@ pub fn fit_orbit(
     start: &StateVector,
     settings: &FitSettings,
 ) -> Result<OrbitFit, FitError> {
+    let all = vec![true; problem.observations.len()];
+    fit_orbit_from(problem, epoch, start, settings, &all)
+}
+
+/// [`fit_orbit`] starting from a given used set (one flag per
+/// observation): with rejection off, the fit keeps exactly that set, which
+/// is how models are compared on the same data.
+pub fn fit_orbit_from(
+    problem: &FitProblem,
+    epoch: Epoch,
+    start: &StateVector,
+    settings: &FitSettings,
+    start_used: &[bool],
+) -> Result<OrbitFit, FitError> {
     let observations = problem.observations;
+    if start_used.len() != observations.len() {
+        return Err(FitError::UsedSetLength {
+            flags: start_used.len(),
+            observations: observations.len(),
+        });
+    }
     let free: Vec<usize> = problem
         .model
         .nongrav()
         .map(|ng| ng.free.indices().collect())
         .unwrap_or_default();
     let n = 6 + free.len();
-    if 2 * observations.len() < n || observations.is_empty() {
+    let in_use = start_used.iter().filter(|u| **u).count();
+    if 2 * in_use < n || in_use == 0 {
         return Err(FitError::TooFewObservations {
-            used: observations.len(),
-            rows: 2 * observations.len(),
+            used: in_use,
+            rows: 2 * in_use,
             parameters: n,
         });
     }
@@ -491,11 +521,18 @@ pub fn fit_orbit(
         .iter()
         .enumerate()
         .map(|(index, o)| {
-            ObserverAt::of(o, problem.ephemeris).map_err(|source| FitError::Observer { index, source })
+            ObserverAt::of(o, problem.ephemeris)
+                .map_err(|source| FitError::Observer { index, source })
         })
         .collect::<Result<Vec<_>, _>>()?;
-    let first = observers.iter().map(|o| o.tdb).fold(epoch, |a, b| if b < a { b } else { a });
-    let last = observers.iter().map(|o| o.tdb).fold(epoch, |a, b| if b > a { b } else { a });
+    let first = observers
+        .iter()
+        .map(|o| o.tdb)
+        .fold(epoch, |a, b| if b < a { b } else { a });
+    let last = observers
+        .iter()
+        .map(|o| o.tdb)
+        .fold(epoch, |a, b| if b > a { b } else { a });
     let mut scales = DVector::from_element(n, 1.0);
     for j in 6..n {
         scales[j] = settings.nongrav_unit_au_per_day2;
@@ -522,7 +559,7 @@ pub fn fit_orbit(
     }
     let mut evaluation = setup.evaluate(&q, true).map_err(FitError::StartingOrbit)?;
 
-    let mut used = vec![true; observations.len()];
+    let mut used = start_used.to_vec();
     let mut iterations = 0;
     let mut passes = 0;
     let (corrected, covs, chi2_each) = loop {

@@ -7,12 +7,16 @@
 //! - [`input`]: observation records to fitter observations (time scales,
 //!   observer places).
 //! - [`lsq`]: differential correction with outlier rejection and covariance.
+//! - [`ladder`]: the model ladder, its tests and the recommended model.
+//! - [`stats`]: tail probabilities and equivalent Gaussian sigmas.
 //!
 //! Nothing here reads files or knows about the store: the caller turns its
 //! records into [`observe::AstrometricObservation`]s.
 pub mod input;
+pub mod ladder;
 pub mod lsq;
 pub mod observe;
+pub mod stats;
 pub mod weights;
 
 #[cfg(test)]

@@ -1,0 +1,527 @@
+//! The model ladder: gravity alone, then each configured set of A_i under
+//! each distance law, all on the same observations, and the decision which
+//! model the data justify.
+//!
+//! 1. Every model is fitted with outlier rejection, warm-started from the
+//!    richest model below it (its state, its A_i, its used set).
+//! 2. The rejections of the richest model that converged (most parameters,
+//!    then lowest chi^2) are imposed on all the others, which are refitted
+//!    with rejection off: delta chi^2 and BIC then compare the same data.
+//! 3. Each non-gravitational model is tested against its parent, the
+//!    richest model whose terms are a strict subset of its own (gravity for
+//!    one-term models): delta chi^2 ~ chi^2(delta k) when the weights are
+//!    right, the F form (delta chi^2 / delta k) / (chi^2 / dof) when the
+//!    richer model's normalised RMS exceeds [`LadderSettings::f_test_above_nrms`].
+//!    The p-value is multiplied by the number of non-gravitational models
+//!    tried (Bonferroni) and turned into an equivalent Gaussian sigma.
+//! 4. A model's terms are significant when each |A_i| / sigma(A_i) reaches
+//!    the threshold and its corrected test against its parent does too; the
+//!    recommended model is the lowest BIC = chi^2 + k ln N among gravity and
+//!    the models whose terms are all significant.
+//! 5. The headline "non-gravitational significance" is the largest
+//!    corrected significance of any non-gravitational model against gravity
+//!    alone: how strongly the data refuse gravity alone.
+
+use crate::astro::ephemeris::{Ephemeris, StateVector};
+use crate::astro::forces::{DistanceLaw, ForceModel, FreeParameters, NonGravModel};
+use crate::astro::time::Epoch;
+
+use super::lsq::{fit_orbit_from, FitError, FitProblem, FitSettings, OrbitFit, Termination};
+use super::observe::AstrometricObservation;
+use super::stats::{bonferroni_ln_p, chi2_ln_sf, f_ln_sf, sigma_of_ln_p};
+
+/// Term names in component order.
+pub const TERM_NAMES: [&str; 3] = ["A1", "A2", "A3"];
+
+#[derive(Debug, Clone, PartialEq)]
+pub struct LadderSettings {
+    /// Non-gravitational rungs above gravity (gravity is always fitted).
+    pub rungs: Vec<FreeParameters>,
+    pub laws: Vec<DistanceLaw>,
+    /// Sigma a term and its test must reach to count as significant.
+    pub significance_sigma: f64,
+    /// Above this normalised RMS the F form of the test is used.
+    pub f_test_above_nrms: f64,
+    pub fit: FitSettings,
+}
+
+impl Default for LadderSettings {
+    fn default() -> Self {
+        Self {
+            rungs: vec![
+                FreeParameters::new(false, true, false),
+                FreeParameters::new(true, false, false),
+                FreeParameters::new(true, true, false),
+                FreeParameters::new(true, true, true),
+            ],
+            laws: vec![DistanceLaw::WaterIce, DistanceLaw::InverseSquare],
+            significance_sigma: 3.0,
+            f_test_above_nrms: 1.2,
+            fit: FitSettings::default(),
+        }
+    }
+}
+
+/// The name a law goes by in configuration and reports.
+pub fn law_name(law: DistanceLaw) -> &'static str {
+    match law {
+        DistanceLaw::WaterIce => "water-ice",
+        DistanceLaw::WaterIceScaled { .. } => "water-ice-scaled",
+        DistanceLaw::InverseSquare => "inverse-square",
+    }
+}
+
+/// "gravity", "A2", "A1+A2", ...
+pub fn terms_name(free: FreeParameters) -> String {
+    if free.count() == 0 {
+        return "gravity".to_string();
+    }
+    free.indices()
+        .map(|i| TERM_NAMES[i])
+        .collect::<Vec<_>>()
+        .join("+")
+}
+
+/// Which form the likelihood-ratio test took.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum TestForm {
+    ChiSquare,
+    F,
+}
+
+/// A model tested against a simpler one.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ModelTest {
+    /// Index of the simpler model in [`Ladder::models`].
+    pub against: usize,
+    pub delta_chi2: f64,
+    pub delta_k: usize,
+    pub form: TestForm,
+    /// ln p before and after the Bonferroni correction.
+    pub ln_p: f64,
+    pub ln_p_corrected: f64,
+    /// Equivalent two-sided Gaussian sigma of the corrected p.
+    pub sigma: f64,
+}
+
+/// One model of the ladder.
+#[derive(Debug, Clone)]
+pub struct ModelFit {
+    pub free: FreeParameters,
+    /// None for gravity alone.
+    pub law: Option<DistanceLaw>,
+    /// The fit on the common observation set; Err with the reason when it
+    /// could not be made.
+    pub fit: Result<OrbitFit, String>,
+    /// Against the parent model.
+    pub test: Option<ModelTest>,
+    /// Against gravity alone.
+    pub test_against_gravity: Option<ModelTest>,
+    /// |A_i| / sigma(A_i) per free term, in component order.
+    pub term_sigmas: Vec<(usize, f64)>,
+    /// Every term and the parent test reach the threshold.
+    pub significant: bool,
+    /// chi^2 + k ln N.
+    pub bic: Option<f64>,
+    pub recommended: bool,
+}
+
+impl ModelFit {
+    pub fn name(&self) -> String {
+        match self.law {
+            None => terms_name(self.free),
+            Some(law) => format!("{} {}", terms_name(self.free), law_name(law)),
+        }
+    }
+
+    pub fn parameter_count(&self) -> usize {
+        6 + self.free.count()
+    }
+
+    pub fn converged(&self) -> bool {
+        matches!(&self.fit, Ok(f) if f.termination == Termination::Converged)
+    }
+
+    /// The fit when it converged.
+    pub fn converged_fit(&self) -> Option<&OrbitFit> {
+        self.fit
+            .as_ref()
+            .ok()
+            .filter(|f| f.termination == Termination::Converged)
+    }
+}
+
+#[derive(Debug, Clone)]
+pub struct Ladder {
+    /// Gravity first, then each law's rungs in the configured order.
+    pub models: Vec<ModelFit>,
+    /// Index of the recommended model (gravity when nothing else is
+    /// justified); None when not even gravity converged.
+    pub recommended: Option<usize>,
+    /// The headline significance (see the module notes); 0 when no
+    /// non-gravitational model converged.
+    pub ng_significance_sigma: f64,
+    /// Non-gravitational models tried (the Bonferroni factor).
+    pub alternatives: usize,
+    /// The common used set, one flag per observation.
+    pub used: Vec<bool>,
+    /// Index of the model whose rejections were imposed.
+    pub reference_model: Option<usize>,
+}
+
+impl Ladder {
+    pub fn recommended_model(&self) -> Option<&ModelFit> {
+        self.recommended.map(|i| &self.models[i])
+    }
+}
+
+fn is_subset(a: FreeParameters, b: FreeParameters) -> bool {
+    (0..3).all(|i| !a.is_free(i) || b.is_free(i))
+}
+
+/// The richest model with a strict subset of `free` among `candidates`
+/// (gravity, index 0, qualifies for all); ties go to the lower chi^2.
+fn parent_of(models: &[ModelFit], index: usize) -> usize {
+    let me = &models[index];
+    let mut best: Option<(usize, usize, f64)> = None;
+    for (j, m) in models.iter().enumerate() {
+        let same_family = m.law.is_none() || m.law == me.law;
+        if j == index || !same_family || m.free.count() >= me.free.count() {
+            continue;
+        }
+        if !is_subset(m.free, me.free) {
+            continue;
+        }
+        let chi2 = m.fit.as_ref().map_or(f64::INFINITY, |f| f.chi2);
+        let better = match best {
+            None => true,
+            Some((_, k, c)) => m.free.count() > k || (m.free.count() == k && chi2 < c),
+        };
+        if better {
+            best = Some((j, m.free.count(), chi2));
+        }
+    }
+    best.map_or(0, |(j, _, _)| j)
+}
+
+/// Fits the whole ladder from a starting state at `epoch`.
+pub fn fit_ladder(
+    ephemeris: &dyn Ephemeris,
+    gravity: &ForceModel,
+    observations: &[AstrometricObservation],
+    epoch: Epoch,
+    start: &StateVector,
+    settings: &LadderSettings,
+) -> Result<Ladder, FitError> {
+    let gravity = gravity.without_nongrav();
+    let mut models = vec![ModelFit {
+        free: FreeParameters::new(false, false, false),
+        law: None,
+        fit: Err("not fitted".into()),
+        test: None,
+        test_against_gravity: None,
+        term_sigmas: Vec::new(),
+        significant: true,
+        bic: None,
+        recommended: false,
+    }];
+    for law in &settings.laws {
+        for free in settings.rungs.iter().filter(|f| f.count() > 0) {
+            models.push(ModelFit {
+                free: *free,
+                law: Some(*law),
+                ..models[0].clone()
+            });
+        }
+    }
+    let all = vec![true; observations.len()];
+
+    // Pass 1: each model with rejection, warm-started from its parent.
+    // Gravity failing outright (too few observations, a bad start) ends
+    // the ladder: every other model starts from it.
+    let first = fit_model(
+        ephemeris,
+        &gravity,
+        &models[0],
+        observations,
+        epoch,
+        start,
+        None,
+        &all,
+        &settings.fit,
+    )?;
+    models[0].fit = Ok(first);
+    for i in 1..models.len() {
+        let parent = parent_of(&models, i);
+        let (state, a, used) = match &models[parent].fit {
+            Ok(p) => (p.state, nongrav_values(p), used_of(p)),
+            Err(_) => (*start, [0.0; 3], all.clone()),
+        };
+        models[i].fit = fit_model(
+            ephemeris,
+            &gravity,
+            &models[i],
+            observations,
+            epoch,
+            &state,
+            Some(a),
+            &used,
+            &settings.fit,
+        )
+        .map_err(|e| e.to_string());
+    }
+
+    // Pass 2: the richest converged model's used set for everyone.
+    let reference = models
+        .iter()
+        .enumerate()
+        .filter(|(_, m)| m.converged())
+        .max_by(|(_, a), (_, b)| {
+            let chi = |m: &ModelFit| m.fit.as_ref().map_or(f64::INFINITY, |f| f.chi2);
+            a.parameter_count()
+                .cmp(&b.parameter_count())
+                .then(chi(b).total_cmp(&chi(a)))
+        })
+        .map(|(i, _)| i);
+    let used = reference
+        .and_then(|r| models[r].fit.as_ref().ok().map(used_of))
+        .unwrap_or_else(|| all.clone());
+    let fixed = FitSettings {
+        outlier_rejection: false,
+        ..settings.fit.clone()
+    };
+    for i in 0..models.len() {
+        if Some(i) == reference {
+            continue;
+        }
+        let (state, a) = match &models[i].fit {
+            Ok(f) => (f.state, nongrav_values(f)),
+            Err(_) => match &models[parent_of(&models, i)].fit {
+                Ok(p) => (p.state, nongrav_values(p)),
+                Err(_) => (*start, [0.0; 3]),
+            },
+        };
+        models[i].fit = fit_model(
+            ephemeris,
+            &gravity,
+            &models[i],
+            observations,
+            epoch,
+            &state,
+            Some(a),
+            &used,
+            &fixed,
+        )
+        .map_err(|e| e.to_string());
+    }
+
+    let alternatives = models.len() - 1;
+    decide(&mut models, &used, alternatives, settings);
+    let recommended = models.iter().position(|m| m.recommended);
+    let ng_significance_sigma = models
+        .iter()
+        .filter_map(|m| m.test_against_gravity.as_ref())
+        .map(|t| t.sigma)
+        .fold(0.0, f64::max);
+    Ok(Ladder {
+        models,
+        recommended,
+        ng_significance_sigma,
+        alternatives,
+        used,
+        reference_model: reference,
+    })
+}
+
+fn used_of(f: &OrbitFit) -> Vec<bool> {
+    f.residuals.iter().map(|r| r.used).collect()
+}
+
+fn nongrav_values(f: &OrbitFit) -> [f64; 3] {
+    let mut a = [0.0; 3];
+    for (i, v) in &f.nongrav_au_per_day2 {
+        a[*i] = *v;
+    }
+    a
+}
+
+#[allow(clippy::too_many_arguments)]
+fn fit_model(
+    ephemeris: &dyn Ephemeris,
+    gravity: &ForceModel,
+    model: &ModelFit,
+    observations: &[AstrometricObservation],
+    epoch: Epoch,
+    start: &StateVector,
+    start_a: Option<[f64; 3]>,
+    used: &[bool],
+    settings: &FitSettings,
+) -> Result<OrbitFit, FitError> {
+    let force = match model.law {
+        None => gravity.clone(),
+        Some(law) => {
+            let mut a = [0.0; 3];
+            if let Some(start_a) = start_a {
+                for i in model.free.indices() {
+                    a[i] = start_a[i];
+                }
+            }
+            gravity
+                .clone()
+                .with_nongrav(NonGravModel::new(law, a, model.free))?
+        }
+    };
+    let problem = FitProblem {
+        ephemeris,
+        model: &force,
+        observations,
+    };
+    fit_orbit_from(&problem, epoch, start, settings, used)
+}
+
+/// Likelihood-ratio test of `rich` against `simple`.
+fn lr_test(
+    rich: &OrbitFit,
+    simple: &OrbitFit,
+    against: usize,
+    delta_k: usize,
+    tries: usize,
+    settings: &LadderSettings,
+) -> ModelTest {
+    let delta_chi2 = (simple.chi2 - rich.chi2).max(0.0);
+    let k = delta_k.max(1) as f64;
+    let (form, ln_p) = if rich.normalised_rms > settings.f_test_above_nrms && rich.dof > 0 {
+        let f = (delta_chi2 / k) / (rich.chi2 / rich.dof as f64);
+        (TestForm::F, f_ln_sf(f, k, rich.dof as f64))
+    } else {
+        (TestForm::ChiSquare, chi2_ln_sf(delta_chi2, k))
+    };
+    let ln_p_corrected = bonferroni_ln_p(ln_p, tries);
+    ModelTest {
+        against,
+        delta_chi2,
+        delta_k,
+        form,
+        ln_p,
+        ln_p_corrected,
+        sigma: sigma_of_ln_p(ln_p_corrected),
+    }
+}
+
+/// Tests, term significances, BIC and the recommendation.
+fn decide(models: &mut [ModelFit], used: &[bool], tries: usize, settings: &LadderSettings) {
+    let n_scalar = 2 * used.iter().filter(|u| **u).count();
+    for i in 0..models.len() {
+        let parent = parent_of(models, i);
+        let (test, test_g, term_sigmas) = match models[i].converged_fit() {
+            Some(f) if i > 0 => {
+                let term_sigmas = term_sigmas(f);
+                let test = models[parent].converged_fit().map(|p| {
+                    let dk = models[i].free.count() - models[parent].free.count();
+                    lr_test(f, p, parent, dk, tries, settings)
+                });
+                let test_g = models[0]
+                    .converged_fit()
+                    .map(|g| lr_test(f, g, 0, models[i].free.count(), tries, settings));
+                (test, test_g, term_sigmas)
+            }
+            _ => (None, None, Vec::new()),
+        };
+        let m = &mut models[i];
+        m.bic = m
+            .converged_fit()
+            .map(|f| f.chi2 + m.parameter_count() as f64 * (n_scalar as f64).ln());
+        m.significant = i == 0
+            || (m.converged()
+                && term_sigmas
+                    .iter()
+                    .all(|(_, s)| *s >= settings.significance_sigma)
+                && test
+                    .as_ref()
+                    .is_some_and(|t| t.sigma >= settings.significance_sigma));
+        m.test = test;
+        m.test_against_gravity = test_g;
+        m.term_sigmas = term_sigmas;
+    }
+    let best = models
+        .iter()
+        .enumerate()
+        .filter(|(_, m)| m.significant && m.bic.is_some())
+        .min_by(|(_, a), (_, b)| {
+            a.bic
+                .unwrap_or(f64::INFINITY)
+                .total_cmp(&b.bic.unwrap_or(f64::INFINITY))
+        })
+        .map(|(i, _)| i);
+    if let Some(b) = best {
+        models[b].recommended = true;
+    }
+}
+
+/// |A_i| / sigma(A_i) of each free term.
+fn term_sigmas(f: &OrbitFit) -> Vec<(usize, f64)> {
+    let Some(c) = &f.covariance else {
+        return Vec::new();
+    };
+    f.nongrav_au_per_day2
+        .iter()
+        .enumerate()
+        .map(|(j, (component, value))| {
+            let sigma = c[(6 + j, 6 + j)].sqrt();
+            (*component, value.abs() / sigma)
+        })
+        .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn names() {
+        assert_eq!(
+            terms_name(FreeParameters::new(false, false, false)),
+            "gravity"
+        );
+        assert_eq!(terms_name(FreeParameters::new(true, true, false)), "A1+A2");
+        assert_eq!(terms_name(FreeParameters::new(false, true, false)), "A2");
+        assert_eq!(law_name(DistanceLaw::InverseSquare), "inverse-square");
+    }
+
+    fn shell(free: FreeParameters, law: Option<DistanceLaw>) -> ModelFit {
+        ModelFit {
+            free,
+            law,
+            fit: Err("not fitted".into()),
+            test: None,
+            test_against_gravity: None,
+            term_sigmas: Vec::new(),
+            significant: false,
+            bic: None,
+            recommended: false,
+        }
+    }
+
+    #[test]
+    fn parents_are_the_richest_subsets_of_the_same_law() {
+        let w = Some(DistanceLaw::WaterIce);
+        let s = Some(DistanceLaw::InverseSquare);
+        let f = FreeParameters::new;
+        let models = vec![
+            shell(f(false, false, false), None),
+            shell(f(false, true, false), w),
+            shell(f(true, false, false), w),
+            shell(f(true, true, false), w),
+            shell(f(true, true, true), w),
+            shell(f(true, false, false), s),
+            shell(f(true, true, true), s),
+        ];
+        assert_eq!(parent_of(&models, 1), 0);
+        assert_eq!(parent_of(&models, 2), 0);
+        // Both one-term models qualify; with no fits, the first found stays.
+        assert!([1, 2].contains(&parent_of(&models, 3)));
+        assert_eq!(parent_of(&models, 4), 3);
+        // The other law's models never serve as parents.
+        assert_eq!(parent_of(&models, 6), 5);
+    }
+}
