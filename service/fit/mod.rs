@@ -9,6 +9,7 @@
 //! - [`lsq`]: differential correction with outlier rejection and covariance.
 //! - [`ladder`]: the model ladder, its tests and the recommended model.
 //! - [`stats`]: tail probabilities and equivalent Gaussian sigmas.
+//! - [`photometry`]: brightness laws (M1/K1, H/G), outburst and activity flags.
 //!
 //! Nothing here reads files or knows about the store: the caller turns its
 //! records into [`observe::AstrometricObservation`]s.
@@ -16,6 +17,7 @@ pub mod input;
 pub mod ladder;
 pub mod lsq;
 pub mod observe;
+pub mod photometry;
 pub mod stats;
 pub mod weights;
 
