@@ -11,6 +11,9 @@ use nalgebra::DVector;
 use perihelix::astro::forces::FreeParameters;
 use perihelix::fit::ladder::{fit_ladder, Ladder, LadderSettings};
 use perihelix::fit::lsq::{fit_orbit, FitProblem, FitSettings, OrbitFit, Termination};
+use perihelix::fit::solution::{
+    distant_inverse_a, elements_with_sigmas, parameters_at, trend_test, Direction,
+};
 
 use common::{de421, load, Synthetic};
 
@@ -235,4 +238,70 @@ fn settings_no_inflation() -> LadderSettings {
         fit: no_inflation(),
         ..LadderSettings::default()
     }
+}
+
+/// Elements at the epoch against the truth script's own osculating
+/// elements (truth.json, computed there from the true state), the distant
+/// 1/a, and the trend test, on the outgassing body's truth-model fit.
+#[test]
+fn elements_distant_inverse_a_and_trend() {
+    let body = load("hyperbolic_outgassing");
+    let free = FreeParameters::new(true, false, false);
+    let f = fit(&body, free, &no_inflation());
+    let eph = de421();
+    let prop = FitSettings::default().propagation;
+    let (state, cov) = parameters_at(&eph, &f, f.epoch, &prop).unwrap();
+    let el = elements_with_sigmas(&state, &cov, f.epoch).unwrap();
+    let t = &body.truth["osculating_elements_at_epoch"];
+    let checks = [
+        ("q", el.q_au, t["q_au"].as_f64().unwrap()),
+        ("e", el.e, t["e"].as_f64().unwrap()),
+        ("i", el.i_deg, t["i_deg"].as_f64().unwrap()),
+        ("node", el.node_deg, t["node_deg"].as_f64().unwrap()),
+        ("peri", el.peri_deg, t["peri_deg"].as_f64().unwrap()),
+        (
+            "tp",
+            el.tp_tdb_days,
+            t["tp_tdb_days_j2000"].as_f64().unwrap(),
+        ),
+    ];
+    for (name, est, truth) in checks {
+        let z = (est.value - truth) / est.sigma;
+        println!(
+            "{name}: {} +- {:.3e} truth {truth} ({z:.2} sigma)",
+            est.value, est.sigma
+        );
+        assert!(z.abs() < 4.0, "{name}: {z} sigma from truth");
+    }
+    // e = 2: a hundred sigma and more from a parabola; v_inf from
+    // v^2 = mu (e - 1) / q = GM_sun with q = 1 au, e = 2: 29.78 km/s
+    // (vis-viva; the truth's elements).
+    assert!(el.e_minus_one_sigmas > 100.0);
+    let v = el.v_inf_km_s.unwrap();
+    assert!((v.value - 29.78).abs() < 4.0 * v.sigma + 0.01, "{v:?}");
+    // The same elements carried 60 days on and their sigmas there.
+    let later = f.epoch.plus_days(60.0);
+    let (s2, c2) = parameters_at(&eph, &f, later, &prop).unwrap();
+    let el2 = elements_with_sigmas(&s2, &c2, later).unwrap();
+    println!("60 d later: q {:?} e {:?}", el2.q_au, el2.e);
+    assert!(el2.q_au.sigma > 0.0 && el2.e.sigma > 0.0);
+    for direction in [Direction::Original, Direction::Future] {
+        let d = distant_inverse_a(&eph, &f, direction, &prop)
+            .unwrap()
+            .expect("unbound");
+        println!(
+            "{direction:?}: 1/a {:?} at {:.1} au, {}",
+            d.inverse_a_per_au, d.distance_au, d.at
+        );
+        // Far from the Sun a hyperbola of 1/a = -1 stays near -1 au^-1 (the
+        // planets change 1/a by of order 1e-3 for such a fast body).
+        assert!((d.inverse_a_per_au.value + 1.0).abs() < 0.05);
+        assert!(d.inverse_a_per_au.sigma > 0.0 && d.inverse_a_per_au.sigma < 1e-2);
+    }
+    let trend = trend_test(&f, &body.noisy).expect("enough nights");
+    println!("trend {trend:?}");
+    assert!(
+        trend.p_value > 1e-3,
+        "a trend in truth-model residuals: {trend:?}"
+    );
 }

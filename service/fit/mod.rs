@@ -8,6 +8,8 @@
 //!   observer places).
 //! - [`lsq`]: differential correction with outlier rejection and covariance.
 //! - [`ladder`]: the model ladder, its tests and the recommended model.
+//! - [`solution`]: elements with sigmas at any epoch, original and future
+//!   1/a, the residual trend test.
 //! - [`stats`]: tail probabilities and equivalent Gaussian sigmas.
 //! - [`photometry`]: brightness laws (M1/K1, H/G), outburst and activity flags.
 //!
@@ -18,6 +20,7 @@ pub mod ladder;
 pub mod lsq;
 pub mod observe;
 pub mod photometry;
+pub mod solution;
 pub mod stats;
 pub mod weights;
 
