@@ -12,9 +12,14 @@
 //!   1/a, the residual trend test.
 //! - [`stats`]: tail probabilities and equivalent Gaussian sigmas.
 //! - [`photometry`]: brightness laws (M1/K1, H/G), outburst and activity flags.
+//! - [`extend`]: a fit grown from a few nights to the whole arc.
+//! - [`initial`]: initial orbits from the observations alone (Gauss's
+//!   method, systematic ranging), scored by their residual RMS.
 //!
 //! Nothing here reads files or knows about the store: the caller turns its
 //! records into [`observe::AstrometricObservation`]s.
+pub mod extend;
+pub mod initial;
 pub mod input;
 pub mod ladder;
 pub mod lsq;
