@@ -7,7 +7,7 @@
 //! the A_i rows kept, and to elements through the Jacobian of the
 //! state-to-elements conversion.
 
-use nalgebra::{DMatrix, DVector, Matrix6, RowDVector, Vector2};
+use nalgebra::{DMatrix, Matrix6, RowDVector, Vector2};
 use thiserror::Error;
 
 use crate::astro::constants::gm;
@@ -358,11 +358,4 @@ pub fn trend_test(fit: &OrbitFit, observations: &[AstrometricObservation]) -> Op
         chi2,
         p_value: chi2_ln_sf(chi2, 2.0).exp(),
     })
-}
-
-/// The parameter vector's sigmas, for reports.
-pub fn parameter_sigmas(fit: &OrbitFit) -> Option<DVector<f64>> {
-    fit.covariance
-        .as_ref()
-        .map(|c| c.diagonal().map(|v| v.max(0.0).sqrt()))
 }
