@@ -4,8 +4,12 @@
 //! Data moves one way: files -> observations -> solutions -> alerts.
 //! - [`astro`]: pure computation (time, frames, ephemerides, observers,
 //!   forces, integrator, elements); no I/O beyond an ephemeris file.
+//! - [`fit`]: orbit determination on astrometric observations (observation
+//!   model, weights, initial orbits, least squares, the model ladder).
 //! - [`ingest`]: observation formats and their validation.
 //! - [`config`]: the one typed configuration.
+//! - [`solve`]: from observation records to a fitted ladder of models and
+//!   its documents (JSON and text), for the command line and the daemon.
 // Constants are written with the digits their sources print (DE440 GM
 // values, integrator coefficients), even where f64 keeps fewer: the text is
 // then checkable against the source.
@@ -15,3 +19,4 @@ pub mod astro;
 pub mod config;
 pub mod fit;
 pub mod ingest;
+pub mod solve;

@@ -6,8 +6,9 @@ use std::process::ExitCode;
 use anyhow::Result;
 use clap::{Parser, Subcommand};
 
+use perihelix::astro::time::{Epoch, UtcTime};
 use perihelix::config::{load_stations, Config, ConfigError, StationList};
-use perihelix::ingest::DesignationKey;
+use perihelix::ingest::{DesignationKey, ObjectObservations};
 
 /// Keeps a small body's orbit right while observations keep coming in.
 ///
@@ -46,6 +47,19 @@ enum Command {
         /// Print one JSON document instead of the report.
         #[arg(long)]
         json: bool,
+        /// Report the elements at this epoch: a Julian date (TDB) such as
+        /// 2461000.5, or an ISO 8601 UTC time (default: the fit epoch, a
+        /// whole TDB day near the middle of the arc).
+        #[arg(long)]
+        epoch: Option<String>,
+        /// The object to fit when the files hold several (a designation
+        /// as written, or the internal id `perihelix ingest` shows).
+        #[arg(long)]
+        object: Option<String>,
+        /// Skip the original and future 1/a (two long integrations per
+        /// model).
+        #[arg(long)]
+        no_distant: bool,
     },
     /// Predict positions and their uncertainty for a station and time grid.
     Predict {
@@ -131,25 +145,43 @@ fn run(cli: Cli) -> Result<ExitCode> {
             json,
         } => ingest(&files, config.as_deref(), stations.as_deref(), json),
         Command::Serve { .. } => not_yet("serve", "the daemon"),
-        Command::Fit { .. } => not_yet("fit", "orbit determination"),
+        Command::Fit {
+            files,
+            config,
+            stations,
+            json,
+            epoch,
+            object,
+            no_distant,
+        } => fit(
+            &files,
+            config.as_deref(),
+            stations.as_deref(),
+            &FitOptions {
+                json,
+                epoch,
+                object,
+                distant: !no_distant,
+            },
+        ),
         Command::Predict { .. } => not_yet("predict", "orbit determination"),
         Command::History { .. } => not_yet("history", "the solution store"),
         Command::Demo { .. } => not_yet("demo", "the daemon"),
     }
 }
 
-/// Stations and links from the configuration (if given), the station list
-/// overriding it (if given), else the shipped station list.
-fn stations_and_links(
-    config: Option<&Path>,
-    stations: Option<&Path>,
-) -> Result<(StationList, Vec<Vec<DesignationKey>>)> {
-    let cfg = config.map(Config::load).transpose()?;
-    let links = cfg.as_ref().map(|c| c.links.clone()).unwrap_or_default();
-    let list = match (stations, cfg) {
+/// The configuration (if given, else the embedded defaults) with its
+/// station list replaced by `stations` (if given), or by the shipped station
+/// list when neither names one.
+fn configuration(config: Option<&Path>, stations: Option<&Path>) -> Result<Config> {
+    let (cfg, explicit) = match config {
+        Some(path) => (Config::load(path)?, true),
+        None => (Config::embedded_default(Path::new(".")), false),
+    };
+    let list = match (stations, explicit) {
         (Some(path), _) => load_stations(path).map_err(|problems| ConfigError { problems })?,
-        (None, Some(c)) => c.stations,
-        (None, None) => {
+        (None, true) => cfg.stations.clone(),
+        (None, false) => {
             let shipped = Path::new("config/stations.toml");
             if shipped.is_file() {
                 load_stations(shipped).map_err(|problems| ConfigError { problems })?
@@ -158,7 +190,19 @@ fn stations_and_links(
             }
         }
     };
-    Ok((list, links))
+    Ok(Config {
+        stations: list,
+        ..cfg
+    })
+}
+
+/// Stations and links from [`configuration`].
+fn stations_and_links(
+    config: Option<&Path>,
+    stations: Option<&Path>,
+) -> Result<(StationList, Vec<Vec<DesignationKey>>)> {
+    let cfg = configuration(config, stations)?;
+    Ok((cfg.stations, cfg.links))
 }
 
 fn ingest(
@@ -204,4 +248,100 @@ fn check_config(file: &Path) -> Result<ExitCode> {
             Ok(ExitCode::FAILURE)
         }
     }
+}
+
+/// How `fit` runs and reports, beyond the files and configuration.
+struct FitOptions {
+    json: bool,
+    epoch: Option<String>,
+    object: Option<String>,
+    distant: bool,
+}
+
+fn fit(
+    files: &[PathBuf],
+    config: Option<&Path>,
+    stations: Option<&Path>,
+    options: &FitOptions,
+) -> Result<ExitCode> {
+    let cfg = configuration(config, stations)?;
+    let outcome = perihelix::ingest::ingest_files(files, &cfg.stations, &cfg.links);
+    for r in &outcome.summary.rejected {
+        eprintln!("rejected: {r}");
+    }
+    let object = pick_object(&outcome.objects, options.object.as_deref())?;
+    let name = object
+        .designations
+        .first()
+        .map_or_else(|| object.id.to_string(), ToString::to_string);
+    let epoch = options
+        .epoch
+        .as_deref()
+        .map(|text| parse_epoch(text, &cfg))
+        .transpose()?;
+    let solved =
+        perihelix::solve::solve_records(&cfg, &name, &object.observations, epoch, options.distant)?;
+    for r in &solved.refused {
+        eprintln!("not used: {r}");
+    }
+    let doc =
+        perihelix::solve::document::SolutionDocument::new(&solved.solution, &solved.ephemeris);
+    if options.json {
+        println!("{}", serde_json::to_string_pretty(&doc)?);
+    } else {
+        print!("{}", perihelix::solve::report::text(&doc));
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+/// The one object to fit: the only one in the files, or the one named.
+fn pick_object<'a>(
+    objects: &'a [ObjectObservations],
+    wanted: Option<&str>,
+) -> Result<&'a ObjectObservations> {
+    let listing = || {
+        objects
+            .iter()
+            .map(|o| {
+                let names: Vec<String> = o.designations.iter().map(ToString::to_string).collect();
+                format!("{} ({})", o.id, names.join(", "))
+            })
+            .collect::<Vec<_>>()
+            .join("; ")
+    };
+    match wanted {
+        None => match objects {
+            [] => anyhow::bail!("the files hold no valid observations"),
+            [one] => Ok(one),
+            _ => anyhow::bail!(
+                "the files hold {} objects; choose one with --object: {}",
+                objects.len(),
+                listing()
+            ),
+        },
+        Some(w) => objects
+            .iter()
+            .find(|o| o.id.to_string() == w || o.designations.iter().any(|d| d.to_string() == w))
+            .ok_or_else(|| {
+                anyhow::anyhow!("no object {w:?} in the files; they hold: {}", listing())
+            }),
+    }
+}
+
+/// `--epoch`: a Julian date on the TDB scale, or an ISO 8601 UTC time.
+fn parse_epoch(text: &str, cfg: &Config) -> Result<Epoch> {
+    if let Ok(jd) = text.trim().parse::<f64>() {
+        anyhow::ensure!(
+            jd.is_finite() && (2_000_000.0..3_000_000.0).contains(&jd),
+            "--epoch {text}: a Julian date between 2000000 and 3000000 was expected"
+        );
+        // Two parts keep a fractional day exact where it can be.
+        let day = jd.floor();
+        return Ok(Epoch::from_tdb_jd(day, jd - day));
+    }
+    let utc = UtcTime::parse_iso8601(text)
+        .map_err(|e| anyhow::anyhow!("--epoch {text}: neither a Julian date nor {e}"))?;
+    Ok(perihelix::solve::time_scales(cfg)?
+        .resolve_utc(&utc, None)?
+        .tdb())
 }

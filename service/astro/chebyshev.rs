@@ -11,6 +11,7 @@
 //! and derivative cost one pass and no allocation.
 
 use std::f64::consts::PI;
+use std::sync::OnceLock;
 
 /// The `n` Chebyshev nodes of the first kind on [-1, 1], in decreasing order:
 /// `x_j = cos(pi (j + 1/2) / n)`.
@@ -74,70 +75,30 @@ pub fn evaluate_with_derivative(coefficients: &[f64], x: f64) -> (f64, f64) {
 
 /// A three-component function of time (days) replaced by Chebyshev series on
 /// consecutive segments of equal length: the layout of an ephemeris table.
-#[derive(Debug, Clone, PartialEq)]
+///
+/// Segments are fitted on first use from the sampler the caller passes,
+/// so a table over two centuries costs only what is evaluated: the fit of
+/// a one-year arc fills a year of segments, and an integration that leaves
+/// the planets in a few long steps fills a few segments per decade.
+#[derive(Debug, Clone)]
 pub struct SegmentedSeries3 {
     start_day: f64,
     segment_days: f64,
     degree: usize,
-    segment_count: usize,
-    /// Per segment, per component, `degree + 1` coefficients.
-    coefficients: Vec<f64>,
+    /// Per segment, once fitted: per component, `degree + 1` coefficients.
+    segments: Vec<OnceLock<Box<[f64]>>>,
 }
 
 impl SegmentedSeries3 {
-    /// Sample `f` at the Chebyshev nodes of each of `segment_count` segments
-    /// of `segment_days` starting at `start_day`, and fit series of `degree`.
-    /// `f` takes the time in days.
-    pub fn fit(
-        start_day: f64,
-        segment_days: f64,
-        segment_count: usize,
-        degree: usize,
-        mut f: impl FnMut(f64) -> [f64; 3],
-    ) -> Self {
-        let fitted = Self::try_fit(start_day, segment_days, segment_count, degree, |t| {
-            Ok::<_, std::convert::Infallible>(f(t))
-        });
-        match fitted {
-            Ok(series) => series,
-            Err(never) => match never {},
-        }
-    }
-
-    /// As [`SegmentedSeries3::fit`] for a sampler that may fail; the first
-    /// failure is returned.
-    pub fn try_fit<E>(
-        start_day: f64,
-        segment_days: f64,
-        segment_count: usize,
-        degree: usize,
-        mut f: impl FnMut(f64) -> Result<[f64; 3], E>,
-    ) -> Result<Self, E> {
-        let per_segment = degree + 1;
-        let node_list: Vec<f64> = nodes(per_segment).collect();
-        let mut coefficients = Vec::with_capacity(segment_count * 3 * per_segment);
-        let mut samples = vec![[0.0; 3]; per_segment];
-        let mut component = vec![0.0; per_segment];
-        for s in 0..segment_count {
-            let mid = start_day + (s as f64 + 0.5) * segment_days;
-            let half = 0.5 * segment_days;
-            for (sample, x) in samples.iter_mut().zip(&node_list) {
-                *sample = f(mid + half * x)?;
-            }
-            for axis in 0..3 {
-                for (c, sample) in component.iter_mut().zip(&samples) {
-                    *c = sample[axis];
-                }
-                coefficients.extend(coefficients_from_node_values(&component));
-            }
-        }
-        Ok(Self {
+    /// A table of `segment_count` segments of `segment_days` starting at
+    /// `start_day`, each to be fitted with series of `degree`.
+    pub fn new(start_day: f64, segment_days: f64, segment_count: usize, degree: usize) -> Self {
+        Self {
             start_day,
             segment_days,
             degree,
-            segment_count,
-            coefficients,
-        })
+            segments: (0..segment_count).map(|_| OnceLock::new()).collect(),
+        }
     }
 
     pub fn start_day(&self) -> f64 {
@@ -145,42 +106,66 @@ impl SegmentedSeries3 {
     }
 
     pub fn end_day(&self) -> f64 {
-        self.start_day + self.segment_days * self.segment_count as f64
+        self.start_day + self.segment_days * self.segments.len() as f64
     }
 
     pub fn degree(&self) -> usize {
         self.degree
     }
 
-    /// Whether `day` lies within the fitted span (ends included).
+    /// How many segments have been fitted so far.
+    pub fn fitted_segments(&self) -> usize {
+        self.segments.iter().filter(|s| s.get().is_some()).count()
+    }
+
+    /// Whether `day` lies within the table's span (ends included).
     pub fn covers(&self, day: f64) -> bool {
         day >= self.start_day && day <= self.end_day()
     }
 
     /// Value and time derivative (per day) at `day`, or `None` outside the
-    /// fitted span.
-    pub fn evaluate(&self, day: f64) -> Option<([f64; 3], [f64; 3])> {
+    /// span. `sample` is the function itself (time in days); it is called
+    /// at the Chebyshev nodes of the segment holding `day` the first time
+    /// that segment is needed, and must be the same function every call.
+    pub fn evaluate(
+        &self,
+        day: f64,
+        sample: impl Fn(f64) -> [f64; 3],
+    ) -> Option<([f64; 3], [f64; 3])> {
         if !self.covers(day) {
             return None;
         }
         let offset = (day - self.start_day) / self.segment_days;
         // The end of the span belongs to the last segment.
-        let segment = (offset.floor() as usize).min(self.segment_count.saturating_sub(1));
+        let segment = (offset.floor() as usize).min(self.segments.len().saturating_sub(1));
+        let coefficients = self.segments[segment].get_or_init(|| {
+            let mid = self.start_day + (segment as f64 + 0.5) * self.segment_days;
+            fit_segment(mid, 0.5 * self.segment_days, self.degree, &sample)
+        });
         let x = 2.0 * (offset - segment as f64) - 1.0;
         let per_segment = self.degree + 1;
-        let base = segment * 3 * per_segment;
         let dx_dday = 2.0 / self.segment_days;
         let mut value = [0.0; 3];
         let mut rate = [0.0; 3];
-        for axis in 0..3 {
-            let start = base + axis * per_segment;
-            let (v, d) =
-                evaluate_with_derivative(&self.coefficients[start..start + per_segment], x);
+        for (axis, series) in coefficients.chunks_exact(per_segment).enumerate() {
+            let (v, d) = evaluate_with_derivative(series, x);
             value[axis] = v;
             rate[axis] = d * dx_dday;
         }
         Some((value, rate))
     }
+}
+
+/// The three series of degree `degree` through `sample` at the Chebyshev
+/// nodes of `mid - half .. mid + half`, one component after the other.
+fn fit_segment(mid: f64, half: f64, degree: usize, sample: impl Fn(f64) -> [f64; 3]) -> Box<[f64]> {
+    let samples: Vec<[f64; 3]> = nodes(degree + 1).map(|x| sample(mid + half * x)).collect();
+    let mut coefficients = Vec::with_capacity(3 * (degree + 1));
+    for axis in 0..3 {
+        let component: Vec<f64> = samples.iter().map(|s| s[axis]).collect();
+        coefficients.extend(coefficients_from_node_values(&component));
+    }
+    coefficients.into_boxed_slice()
 }
 
 #[cfg(test)]
@@ -243,11 +228,11 @@ mod tests {
         const VELOCITY_TOLERANCE: f64 = 1e-12;
         let omega = 2.0 * PI / 30.0;
         let circle = |t: f64| [(omega * t).cos(), (omega * t).sin(), 0.1 * t];
-        let series = SegmentedSeries3::fit(-20.0, 8.0, 10, 12, circle);
+        let series = SegmentedSeries3::new(-20.0, 8.0, 10, 12);
         assert_eq!(series.end_day(), 60.0);
         for i in 0..=800 {
             let t = -20.0 + i as f64 * 0.1;
-            let (p, v) = series.evaluate(t).unwrap();
+            let (p, v) = series.evaluate(t, circle).unwrap();
             let want_p = [(omega * t).cos(), (omega * t).sin(), 0.1 * t];
             let want_v = [-omega * (omega * t).sin(), omega * (omega * t).cos(), 0.1];
             for axis in 0..3 {
@@ -255,19 +240,21 @@ mod tests {
                 assert!((v[axis] - want_v[axis]).abs() < VELOCITY_TOLERANCE, "t={t}");
             }
         }
-        assert!(series.evaluate(-20.001).is_none());
-        assert!(series.evaluate(60.001).is_none());
+        assert!(series.evaluate(-20.001, circle).is_none());
+        assert!(series.evaluate(60.001, circle).is_none());
     }
 
     #[test]
-    fn fit_passes_on_the_sampler_error() {
-        let result = SegmentedSeries3::try_fit(0.0, 1.0, 3, 4, |t| {
-            if t > 2.0 {
-                Err("beyond")
-            } else {
-                Ok([t; 3])
-            }
-        });
-        assert_eq!(result, Err("beyond"));
+    fn segments_are_fitted_when_first_needed() {
+        let series = SegmentedSeries3::new(0.0, 10.0, 100, 6);
+        let line = |t: f64| [t, 2.0 * t, -t];
+        assert_eq!(series.fitted_segments(), 0);
+        let (p, v) = series.evaluate(15.0, line).unwrap();
+        // A line is a polynomial of degree 1: exact to rounding.
+        assert!((p[1] - 30.0).abs() < 1e-12 && (v[2] + 1.0).abs() < 1e-12);
+        series.evaluate(19.0, line).unwrap();
+        assert_eq!(series.fitted_segments(), 1);
+        series.evaluate(995.0, line).unwrap();
+        assert_eq!(series.fitted_segments(), 2);
     }
 }

@@ -4,12 +4,11 @@
 //! - [`observe`]: the observation model (light time, RA/Dec, residuals and
 //!   their partials with respect to the fitted parameters).
 //! - [`weights`]: each observation's 2 x 2 covariance.
-//! - [`input`]: observation records to fitter observations (time scales,
-//!   observer places).
 //! - [`lsq`]: differential correction with outlier rejection and covariance.
 //! - [`ladder`]: the model ladder, its tests and the recommended model.
 //! - [`solution`]: elements with sigmas at any epoch, original and future
 //!   1/a, the residual trend test.
+//! - [`consistency`]: the chi^2 of new observations against a solution.
 //! - [`stats`]: tail probabilities and equivalent Gaussian sigmas.
 //! - [`photometry`]: brightness laws (M1/K1, H/G), outburst and activity flags.
 //! - [`extend`]: a fit grown from a few nights to the whole arc.
@@ -18,9 +17,9 @@
 //!
 //! Nothing here reads files or knows about the store: the caller turns its
 //! records into [`observe::AstrometricObservation`]s.
+pub mod consistency;
 pub mod extend;
 pub mod initial;
-pub mod input;
 pub mod ladder;
 pub mod lsq;
 pub mod observe;

@@ -14,9 +14,9 @@ use perihelix::astro::forces::{DistanceLaw, ForceModel, FreeParameters, NonGravM
 use perihelix::astro::spk::SpkEphemeris;
 use perihelix::astro::time::{Epoch, TimeScales};
 use perihelix::config::{load_stations, StationList};
-use perihelix::fit::input::astrometric_all;
 use perihelix::fit::observe::AstrometricObservation;
 use perihelix::ingest::read_file;
+use perihelix::solve::input::astrometric_all;
 
 pub fn repo() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR"))

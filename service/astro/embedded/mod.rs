@@ -10,10 +10,14 @@
 //! - the Moon geocentric: Meeus' truncated ELP-2000/82 (see [`moon`]).
 //!
 //! Full series cost tens of microseconds per planet, far too much for a
-//! force model called millions of times, so [`EmbeddedEphemeris::new`]
-//! samples every body once over the requested span and keeps Chebyshev
-//! series per segment; a state then costs one short series evaluation and
-//! velocities come from the derivative of the same series.
+//! force model called millions of times, so [`EmbeddedEphemeris`] keeps
+//! Chebyshev series per segment, each fitted from the theories the first
+//! time a state inside it is asked for; a state then costs one short series
+//! evaluation and velocities come from the derivative of the same series.
+//! Filling on demand lets one table span the theories' two centuries: an
+//! arc's fit pays for the arc, and the long integrations to the original
+//! and future orbits, which cross decades in long steps, for a few segments
+//! per step.
 
 pub mod moon;
 pub mod planets;
@@ -155,18 +159,19 @@ impl AnalyticTheories {
 }
 
 /// The default ephemeris: every body tabulated as Chebyshev segments over
-/// a fixed span.
+/// a fixed span, each segment fitted when first used.
 #[derive(Debug, Clone)]
 pub struct EmbeddedEphemeris {
     start: Epoch,
     end: Epoch,
+    theories: AnalyticTheories,
     tables: Vec<SegmentedSeries3>,
 }
 
 impl EmbeddedEphemeris {
-    /// Sample the theories over `[start, end]` (TDB). Callers add their own
-    /// margins (light time, integration overshoot) to the arc they need.
-    /// Costs about a tenth of a second per year of span.
+    /// A table over `[start, end]` (TDB), inside 1900-2100. Nothing is
+    /// sampled yet: each segment costs its share of the theories' time
+    /// (about a tenth of a second per year for all bodies) when first used.
     pub fn new(start: Epoch, end: Epoch) -> Result<Self, EmbeddedEphemerisError> {
         let (a, b) = (start.tdb_days_since_j2000(), end.tdb_days_since_j2000());
         if !(a.is_finite() && b.is_finite() && a < b) {
@@ -181,19 +186,41 @@ impl EmbeddedEphemeris {
                 end: end.to_string(),
             });
         }
-        let theories = AnalyticTheories::new();
         let tables = BODIES
             .iter()
             .map(|&body| {
                 let (segment_days, degree) = segment_plan(body);
                 let count = ((b - a) / segment_days).ceil().max(1.0) as usize;
-                SegmentedSeries3::fit(a, segment_days, count, degree, |day| {
-                    let p = theories.position_au(body, Epoch::from_tdb_days_since_j2000(day));
-                    [p.x, p.y, p.z]
-                })
+                SegmentedSeries3::new(a, segment_days, count, degree)
             })
             .collect();
-        Ok(Self { start, end, tables })
+        Ok(Self {
+            start,
+            end,
+            theories: AnalyticTheories::new(),
+            tables,
+        })
+    }
+
+    /// The table over the theories' whole span, 1900-2100.
+    pub fn full_span() -> Self {
+        let (start, end) = (
+            Epoch::from_tdb_days_since_j2000(THEORY_START_DAYS),
+            Epoch::from_tdb_days_since_j2000(THEORY_END_DAYS),
+        );
+        match Self::new(start, end) {
+            Ok(table) => table,
+            // The constants are a valid span by construction.
+            Err(e) => unreachable!("{e}"),
+        }
+    }
+
+    /// Segments fitted so far, over all bodies: what the table has cost.
+    pub fn fitted_segments(&self) -> usize {
+        self.tables
+            .iter()
+            .map(SegmentedSeries3::fitted_segments)
+            .sum()
     }
 
     pub fn start(&self) -> Epoch {
@@ -216,8 +243,14 @@ impl Ephemeris for EmbeddedEphemeris {
         if !(t >= self.start && t <= self.end) {
             return Err(out_of_range());
         }
+        let sample = |day: f64| {
+            let p = self
+                .theories
+                .position_au(body, Epoch::from_tdb_days_since_j2000(day));
+            [p.x, p.y, p.z]
+        };
         let (p, v) = self.tables[table_index(body)]
-            .evaluate(t.tdb_days_since_j2000())
+            .evaluate(t.tdb_days_since_j2000(), sample)
             .ok_or_else(out_of_range)?;
         Ok(StateVector::new(Vector3::from(p), Vector3::from(v)))
     }

@@ -14,7 +14,7 @@ use crate::astro::time::{TimeError, TimeScales, UtcTime};
 use crate::config::StationList;
 use crate::ingest::{InertialPosition, Observation, ObserverLocation, SpiceId};
 
-use super::observe::AstrometricObservation;
+use crate::fit::observe::AstrometricObservation;
 
 /// Why one record cannot enter a fit.
 #[derive(Debug, Error, Clone, PartialEq)]

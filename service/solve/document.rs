@@ -1,0 +1,369 @@
+//! A solution as one JSON document: what `perihelix fit --json` prints and
+//! the API serves. Units are in the field names, every estimate is
+//! `{ "value": x, "sigma": s }`, elements are heliocentric ecliptic J2000
+//! and osculating at `elements_epoch_tdb_jd`.
+
+use std::collections::BTreeMap;
+
+use serde::Serialize;
+
+use crate::fit::ladder::{law_name, ModelFit, ModelTest, TestForm};
+use crate::fit::lsq::{OrbitFit, Termination};
+use crate::fit::observe::AstrometricObservation;
+use crate::fit::solution::{DistantInverseA, ElementEstimates, Estimate, TrendTest};
+
+use super::{ModelDerived, Solution};
+
+/// Days from JD 0 to J2000 (JD 2451545.0 TDB).
+const J2000_JD: f64 = 2_451_545.0;
+
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct ValueSigma {
+    pub value: f64,
+    pub sigma: f64,
+}
+
+impl From<Estimate> for ValueSigma {
+    fn from(e: Estimate) -> Self {
+        Self {
+            value: e.value,
+            sigma: e.sigma,
+        }
+    }
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SolutionDocument {
+    pub object: String,
+    pub n_obs: usize,
+    /// Observations in the common set the models were compared on.
+    pub n_used: usize,
+    pub arc_days: f64,
+    pub first_obs_utc: String,
+    pub last_obs_utc: String,
+    /// The epoch of the fitted state.
+    pub epoch_tdb_jd: f64,
+    /// The epoch of the reported elements.
+    pub elements_epoch_tdb_jd: f64,
+    /// The largest Bonferroni-corrected significance of any
+    /// non-gravitational model against gravity alone, Gaussian sigma.
+    pub ng_significance_sigma: f64,
+    /// Name of the recommended model.
+    pub recommended: Option<String>,
+    /// Non-gravitational models tried (the Bonferroni factor).
+    pub alternatives: usize,
+    pub initial_orbit: InitialDocument,
+    pub ephemeris: String,
+    pub models: Vec<ModelDocument>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct InitialDocument {
+    pub method: String,
+    pub rms_arcsec: f64,
+    pub scored_observations: usize,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ModelDocument {
+    pub name: String,
+    pub terms: Vec<String>,
+    pub law: Option<String>,
+    pub recommended: bool,
+    pub converged: bool,
+    /// Why the fit stopped ("converged", or the failure reason).
+    pub termination: String,
+    pub chi2: Option<f64>,
+    pub dof: Option<usize>,
+    pub rms_arcsec: Option<f64>,
+    pub normalized_rms: Option<f64>,
+    pub bic: Option<f64>,
+    /// Every term and the test against the parent reach the threshold.
+    pub significant: bool,
+    pub test: Option<TestDocument>,
+    pub test_against_gravity: Option<TestDocument>,
+    pub elements: Option<ElementsDocument>,
+    pub nongrav: BTreeMap<String, ValueSigma>,
+    /// |A_i| / sigma(A_i).
+    pub nongrav_snr: BTreeMap<String, f64>,
+    pub one_over_a_original: Option<InverseADocument>,
+    pub one_over_a_future: Option<InverseADocument>,
+    /// Why a derived quantity is missing, when it failed.
+    pub problems: Vec<String>,
+    pub rejected: Vec<RejectedDocument>,
+    pub trend: Option<TrendDocument>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct TestDocument {
+    /// The simpler model's name.
+    pub against: String,
+    pub form: &'static str,
+    pub delta_chi2: f64,
+    pub delta_k: usize,
+    /// log10 of the Bonferroni-corrected p-value.
+    pub log10_p_corrected: f64,
+    pub sigma: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ElementsDocument {
+    pub q_au: ValueSigma,
+    pub e: ValueSigma,
+    pub i_deg: ValueSigma,
+    pub node_deg: ValueSigma,
+    pub peri_deg: ValueSigma,
+    pub tp_tdb_jd: ValueSigma,
+    /// Heliocentric osculating 1/a (negative for hyperbolas).
+    pub one_over_a_per_au: ValueSigma,
+    /// (e - 1) / sigma(e).
+    pub e_minus_one_sigmas: f64,
+    /// Null for bound orbits.
+    pub v_inf_km_s: Option<ValueSigma>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct InverseADocument {
+    pub value: f64,
+    pub sigma: f64,
+    /// Barycentric distance where it was taken (below 250 au when the
+    /// ephemeris ended first).
+    pub distance_au: f64,
+    pub tdb_jd: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct RejectedDocument {
+    pub obs_time: String,
+    pub station: String,
+    pub chi2: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct TrendDocument {
+    pub nights: usize,
+    pub slope_ra_arcsec_per_day: ValueSigma,
+    pub slope_dec_arcsec_per_day: ValueSigma,
+    pub chi2: f64,
+    pub p_value: f64,
+}
+
+pub fn term_name(component: usize) -> String {
+    format!("A{}", component + 1)
+}
+
+pub fn termination_text(t: &Termination) -> String {
+    match t {
+        Termination::Converged => "converged".into(),
+        Termination::MaxIterations => "iteration limit reached".into(),
+        Termination::Diverged { reason } => format!("diverged: {reason}"),
+        Termination::Singular { condition_number } => {
+            format!("singular normal matrix (condition number {condition_number:.3e})")
+        }
+        Termination::OutlierCycle => "outlier rejection did not settle".into(),
+    }
+}
+
+fn test_document(t: &ModelTest, models: &[ModelFit]) -> TestDocument {
+    TestDocument {
+        against: models[t.against].name(),
+        form: match t.form {
+            TestForm::ChiSquare => "chi-square",
+            TestForm::F => "F",
+        },
+        delta_chi2: t.delta_chi2,
+        delta_k: t.delta_k,
+        log10_p_corrected: t.ln_p_corrected / std::f64::consts::LN_10,
+        sigma: t.sigma,
+    }
+}
+
+fn elements_document(e: &ElementEstimates) -> ElementsDocument {
+    ElementsDocument {
+        q_au: e.q_au.into(),
+        e: e.e.into(),
+        i_deg: e.i_deg.into(),
+        node_deg: e.node_deg.into(),
+        peri_deg: e.peri_deg.into(),
+        tp_tdb_jd: ValueSigma {
+            value: e.tp_tdb_days.value + J2000_JD,
+            sigma: e.tp_tdb_days.sigma,
+        },
+        one_over_a_per_au: e.inverse_a_per_au.into(),
+        e_minus_one_sigmas: e.e_minus_one_sigmas,
+        v_inf_km_s: e.v_inf_km_s.map(Into::into),
+    }
+}
+
+fn inverse_a_document(d: &DistantInverseA) -> InverseADocument {
+    InverseADocument {
+        value: d.inverse_a_per_au.value,
+        sigma: d.inverse_a_per_au.sigma,
+        distance_au: d.distance_au,
+        tdb_jd: d.at.tdb_jd(),
+    }
+}
+
+fn trend_document(t: &TrendTest) -> TrendDocument {
+    TrendDocument {
+        nights: t.nights,
+        slope_ra_arcsec_per_day: t.slope_arcsec_per_day[0].into(),
+        slope_dec_arcsec_per_day: t.slope_arcsec_per_day[1].into(),
+        chi2: t.chi2,
+        p_value: t.p_value,
+    }
+}
+
+/// The fitted A_i with sigmas from the covariance (rows 6.. in order).
+pub fn nongrav_estimates(fit: &OrbitFit) -> Vec<(usize, ValueSigma)> {
+    fit.nongrav_au_per_day2
+        .iter()
+        .enumerate()
+        .map(|(j, (component, value))| {
+            let sigma = fit
+                .covariance
+                .as_ref()
+                .map_or(f64::NAN, |c| c[(6 + j, 6 + j)].max(0.0).sqrt());
+            (
+                *component,
+                ValueSigma {
+                    value: *value,
+                    sigma,
+                },
+            )
+        })
+        .collect()
+}
+
+pub fn rejected(fit: &OrbitFit, observations: &[AstrometricObservation]) -> Vec<RejectedDocument> {
+    fit.residuals
+        .iter()
+        .zip(observations)
+        .filter(|(r, _)| !r.used)
+        .map(|(r, o)| RejectedDocument {
+            obs_time: o.time.utc().to_iso8601(3),
+            station: o.station.clone(),
+            chi2: r.chi2,
+        })
+        .collect()
+}
+
+fn model_document(
+    m: &ModelFit,
+    derived: Option<&ModelDerived>,
+    models: &[ModelFit],
+    observations: &[AstrometricObservation],
+) -> ModelDocument {
+    let fit = m.fit.as_ref().ok();
+    let mut problems = Vec::new();
+    let mut take = |what: &str, r: &Result<Option<DistantInverseA>, String>| match r {
+        Ok(v) => v.as_ref().map(inverse_a_document),
+        Err(e) => {
+            problems.push(format!("{what}: {e}"));
+            None
+        }
+    };
+    let (original, future) = match derived {
+        Some(d) => (
+            take("original 1/a", &d.original),
+            take("future 1/a", &d.future),
+        ),
+        None => (None, None),
+    };
+    let elements = derived.and_then(|d| match &d.elements {
+        Ok(e) => Some(elements_document(e)),
+        Err(e) => {
+            problems.push(format!("elements: {e}"));
+            None
+        }
+    });
+    let nongrav = fit.map(nongrav_estimates).unwrap_or_default();
+    ModelDocument {
+        name: m.name(),
+        terms: m.free.indices().map(term_name).collect(),
+        law: m.law.map(|l| law_name(l).to_string()),
+        recommended: m.recommended,
+        converged: m.converged(),
+        termination: match &m.fit {
+            Ok(f) => termination_text(&f.termination),
+            Err(reason) => reason.clone(),
+        },
+        chi2: fit.map(|f| f.chi2),
+        dof: fit.map(|f| f.dof),
+        rms_arcsec: fit.map(|f| f.rms_arcsec),
+        normalized_rms: fit.map(|f| f.normalised_rms),
+        bic: m.bic,
+        significant: m.significant,
+        test: m.test.as_ref().map(|t| test_document(t, models)),
+        test_against_gravity: m
+            .test_against_gravity
+            .as_ref()
+            .map(|t| test_document(t, models)),
+        elements,
+        nongrav_snr: m
+            .term_sigmas
+            .iter()
+            .map(|(c, s)| (term_name(*c), *s))
+            .collect(),
+        nongrav: nongrav
+            .into_iter()
+            .map(|(c, v)| (term_name(c), v))
+            .collect(),
+        one_over_a_original: original,
+        one_over_a_future: future,
+        problems,
+        rejected: fit.map(|f| rejected(f, observations)).unwrap_or_default(),
+        trend: derived.and_then(|d| d.trend.as_ref()).map(trend_document),
+    }
+}
+
+impl SolutionDocument {
+    pub fn new(solution: &Solution, ephemeris: &str) -> Self {
+        let ladder = &solution.ladder;
+        let method = match &solution.initial.method {
+            crate::fit::initial::Method::Gauss { .. } => "gauss",
+            crate::fit::initial::Method::Ranging { .. } => "ranging",
+        };
+        let utc = |t: &AstrometricObservation| t.time.utc().to_iso8601(3);
+        let by_time = |pick_last: bool| {
+            solution
+                .observations
+                .iter()
+                .reduce(|a, b| {
+                    let later = b.time.tdb() > a.time.tdb();
+                    if later == pick_last {
+                        b
+                    } else {
+                        a
+                    }
+                })
+                .map(utc)
+                .unwrap_or_default()
+        };
+        Self {
+            object: solution.object.clone(),
+            n_obs: solution.observations.len(),
+            n_used: ladder.used.iter().filter(|u| **u).count(),
+            arc_days: solution.arc_days(),
+            first_obs_utc: by_time(false),
+            last_obs_utc: by_time(true),
+            epoch_tdb_jd: solution.epoch.tdb_jd(),
+            elements_epoch_tdb_jd: solution.elements_epoch.tdb_jd(),
+            ng_significance_sigma: ladder.ng_significance_sigma,
+            recommended: ladder.recommended_model().map(ModelFit::name),
+            alternatives: ladder.alternatives,
+            initial_orbit: InitialDocument {
+                method: method.into(),
+                rms_arcsec: solution.initial.rms_arcsec,
+                scored_observations: solution.initial.scored_observations,
+            },
+            ephemeris: ephemeris.to_string(),
+            models: ladder
+                .models
+                .iter()
+                .zip(&solution.derived)
+                .map(|(m, d)| model_document(m, d.as_ref(), &ladder.models, &solution.observations))
+                .collect(),
+        }
+    }
+}

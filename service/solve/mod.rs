@@ -1,0 +1,331 @@
+//! From observation records to a complete solution: the one job that the
+//! `fit` command and the daemon's worker share.
+//!
+//! The science in [`crate::fit`] never sees records, files or the
+//! configuration; this module is where they meet it:
+//! - [`input`]: records to fitter observations (time scales, observer places).
+//! - [`settings`]: the configuration's fit section to the fitter's settings.
+//! - [`sources`]: the ephemeris the configuration names, sized to an arc.
+//! - [`document`]: a solution as the JSON document the commands and the API
+//!   return.
+//! - [`report`]: the same solution as text for a person.
+//!
+//! The job: an initial orbit from the observations alone, its state carried
+//! to a round epoch near the middle of the arc, the whole model ladder, and
+//! for every converged model the elements with sigmas (at a requested
+//! epoch or the fit's), the original and future barycentric 1/a and the
+//! residual trend test.
+
+pub mod document;
+pub mod input;
+pub mod report;
+pub mod settings;
+pub mod sources;
+
+use thiserror::Error;
+
+use crate::astro::ephemeris::{Ephemeris, StateVector};
+use crate::astro::forces::ForceModel;
+use crate::astro::propagation::{PropagationError, PropagationSettings, Trajectory};
+use crate::astro::time::Epoch;
+use crate::fit::initial::{initial_orbits, InitialOrbit, InitialOrbitError, InitialOrbitSettings};
+use crate::fit::ladder::{fit_ladder, Ladder, LadderSettings};
+use crate::fit::lsq::{FitError, OrbitFit};
+use crate::fit::observe::AstrometricObservation;
+use crate::fit::solution::{
+    distant_inverse_a, elements_with_sigmas, parameters_at, trend_test, Direction, DistantInverseA,
+    ElementEstimates, TrendTest,
+};
+
+/// Initial orbits tried, best first, until one gives a converged ladder.
+const STARTS_TRIED: usize = 3;
+
+#[derive(Debug, Clone)]
+pub struct SolveSettings {
+    pub ladder: LadderSettings,
+    pub initial: InitialOrbitSettings,
+    /// Gravity of the fits: perturbers and relativity.
+    pub gravity: ForceModel,
+    /// Elements are reported at this epoch (the fit's own when None).
+    pub elements_epoch: Option<Epoch>,
+    /// Compute the original and future barycentric 1/a (each is a long
+    /// integration with partials).
+    pub distant_inverse_a: bool,
+}
+
+impl Default for SolveSettings {
+    fn default() -> Self {
+        Self {
+            ladder: LadderSettings::default(),
+            initial: InitialOrbitSettings::default(),
+            gravity: ForceModel::gravity(),
+            elements_epoch: None,
+            distant_inverse_a: true,
+        }
+    }
+}
+
+#[derive(Debug, Error)]
+pub enum SolveError {
+    #[error("no observations to fit")]
+    NoObservations,
+    #[error("{0}")]
+    TimeScales(#[from] crate::astro::time::TimeError),
+    #[error("{0}")]
+    Source(#[from] sources::SourceError),
+    #[error("force model: {0}")]
+    Model(#[from] crate::astro::forces::ForceModelError),
+    #[error("initial orbit: {0}")]
+    Initial(#[from] InitialOrbitError),
+    #[error("carrying the initial orbit to the fit epoch: {0}")]
+    Propagation(#[from] PropagationError),
+    #[error("the fit: {0}")]
+    Fit(#[from] FitError),
+    #[error("no model of the ladder converged from the {tried} best initial orbits")]
+    NoConvergedModel { tried: usize },
+}
+
+/// What a converged model says beyond its fit.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ModelDerived {
+    pub elements: Result<ElementEstimates, String>,
+    /// None: not asked for, or a bound orbit that never leaves the planets.
+    pub original: Result<Option<DistantInverseA>, String>,
+    pub future: Result<Option<DistantInverseA>, String>,
+    pub trend: Option<TrendTest>,
+}
+
+#[derive(Debug, Clone)]
+pub struct Solution {
+    pub object: String,
+    pub observations: Vec<AstrometricObservation>,
+    pub first: Epoch,
+    pub last: Epoch,
+    /// The fit epoch: the middle of the arc, on a whole TDB day (JD .5).
+    pub epoch: Epoch,
+    /// The epoch of the reported elements.
+    pub elements_epoch: Epoch,
+    pub initial: InitialOrbit,
+    pub ladder: Ladder,
+    /// One entry per ladder model, None where the model did not converge.
+    pub derived: Vec<Option<ModelDerived>>,
+}
+
+impl Solution {
+    pub fn arc_days(&self) -> f64 {
+        self.last.days_since(self.first)
+    }
+
+    /// The recommended model's fit, if any model converged.
+    pub fn recommended_fit(&self) -> Option<&OrbitFit> {
+        self.ladder.recommended_model()?.converged_fit()
+    }
+}
+
+/// The middle of `first..last`, moved to the nearest 0h TDB.
+pub fn mid_arc_epoch(first: Epoch, last: Epoch) -> Epoch {
+    let mid = first.plus_days(0.5 * last.days_since(first));
+    // A day number is exact in one f64; only the rounding uses the JD.
+    Epoch::from_tdb_jd((mid.tdb_jd() - 0.5).round() + 0.5, 0.0)
+}
+
+fn span(observations: &[AstrometricObservation]) -> Option<(Epoch, Epoch)> {
+    let mut times = observations.iter().map(|o| o.time.tdb());
+    let t0 = times.next()?;
+    Some(times.fold((t0, t0), |(a, b), t| {
+        (if t < a { t } else { a }, if t > b { t } else { b })
+    }))
+}
+
+/// The state of `orbit` carried to `epoch` under gravity.
+fn start_at(
+    ephemeris: &dyn Ephemeris,
+    gravity: &ForceModel,
+    orbit: &InitialOrbit,
+    epoch: Epoch,
+    propagation: &PropagationSettings,
+) -> Result<StateVector, PropagationError> {
+    if orbit.epoch == epoch {
+        return Ok(orbit.state);
+    }
+    let (a, b) = if orbit.epoch < epoch {
+        (orbit.epoch, epoch)
+    } else {
+        (epoch, orbit.epoch)
+    };
+    let settings = PropagationSettings {
+        partials: false,
+        ..*propagation
+    };
+    Trajectory::integrate(
+        ephemeris,
+        gravity,
+        orbit.epoch,
+        &orbit.state,
+        a,
+        b,
+        &settings,
+    )?
+    .state(epoch)
+}
+
+/// Fits `observations` of `object` from nothing: initial orbit, ladder,
+/// and what each converged model implies.
+pub fn solve(
+    ephemeris: &dyn Ephemeris,
+    object: &str,
+    observations: Vec<AstrometricObservation>,
+    settings: &SolveSettings,
+) -> Result<Solution, SolveError> {
+    let (first, last) = span(&observations).ok_or(SolveError::NoObservations)?;
+    let epoch = mid_arc_epoch(first, last);
+    let candidates = initial_orbits(ephemeris, &observations, &settings.initial)?;
+    let propagation = settings.ladder.fit.propagation;
+    let mut solved = None;
+    let mut last_error = None;
+    for orbit in candidates.iter().take(STARTS_TRIED) {
+        let start = match start_at(ephemeris, &settings.gravity, orbit, epoch, &propagation) {
+            Ok(s) => s,
+            Err(e) => {
+                last_error = Some(SolveError::from(e));
+                continue;
+            }
+        };
+        match fit_ladder(
+            ephemeris,
+            &settings.gravity,
+            &observations,
+            epoch,
+            &start,
+            &settings.ladder,
+        ) {
+            Ok(ladder) if ladder.models.iter().any(|m| m.converged()) => {
+                solved = Some((orbit.clone(), ladder));
+                break;
+            }
+            Ok(_) => {}
+            Err(e) => last_error = Some(SolveError::from(e)),
+        }
+    }
+    let Some((initial, ladder)) = solved else {
+        return Err(last_error.unwrap_or(SolveError::NoConvergedModel {
+            tried: candidates.len().min(STARTS_TRIED),
+        }));
+    };
+    let elements_epoch = settings.elements_epoch.unwrap_or(epoch);
+    let derived = ladder
+        .models
+        .iter()
+        .map(|m| {
+            m.converged_fit().map(|fit| {
+                derive(
+                    ephemeris,
+                    fit,
+                    &observations,
+                    elements_epoch,
+                    settings.distant_inverse_a,
+                    &propagation,
+                )
+            })
+        })
+        .collect();
+    Ok(Solution {
+        object: object.to_string(),
+        observations,
+        first,
+        last,
+        epoch,
+        elements_epoch,
+        initial,
+        ladder,
+        derived,
+    })
+}
+
+/// A solution from validated records and the configuration: the records
+/// that cannot be placed come back with their reasons (file and line),
+/// the rest are fitted.
+pub struct RecordsSolved {
+    pub solution: Solution,
+    /// Where the Sun, planets and Moon came from.
+    pub ephemeris: String,
+    pub refused: Vec<input::InputError>,
+}
+
+/// The time scales the configuration asks for: its leap-second file, or
+/// the built-in table.
+pub fn time_scales(
+    config: &crate::config::Config,
+) -> Result<crate::astro::time::TimeScales, crate::astro::time::TimeError> {
+    use crate::astro::time::{LeapSecondTable, TimeScales};
+    Ok(match &config.leap_seconds_file {
+        Some(path) => TimeScales::new(LeapSecondTable::from_file(path)?),
+        None => TimeScales::builtin().clone(),
+    })
+}
+
+pub fn solve_records(
+    config: &crate::config::Config,
+    object: &str,
+    records: &[crate::ingest::Observation],
+    elements_epoch: Option<Epoch>,
+    distant: bool,
+) -> Result<RecordsSolved, SolveError> {
+    let scales = time_scales(config)?;
+    let (kept, refused) = input::astrometric_all(records, &config.stations, &scales);
+    let observations: Vec<AstrometricObservation> = kept.into_iter().map(|(_, o)| o).collect();
+    let ephemeris = sources::open(&config.ephemeris)?;
+    let mut settings = settings::solve_settings(&config.fit, &config.stations)?;
+    settings.elements_epoch = elements_epoch;
+    settings.distant_inverse_a = distant;
+    let solution = solve(&ephemeris, object, observations, &settings)?;
+    Ok(RecordsSolved {
+        solution,
+        ephemeris: ephemeris.describe(),
+        refused,
+    })
+}
+
+fn derive(
+    ephemeris: &dyn Ephemeris,
+    fit: &OrbitFit,
+    observations: &[AstrometricObservation],
+    elements_epoch: Epoch,
+    distant: bool,
+    propagation: &PropagationSettings,
+) -> ModelDerived {
+    let elements = parameters_at(ephemeris, fit, elements_epoch, propagation)
+        .and_then(|(state, c)| elements_with_sigmas(&state, &c, elements_epoch))
+        .map_err(|e| e.to_string());
+    let far = |direction| {
+        if distant {
+            distant_inverse_a(ephemeris, fit, direction, propagation).map_err(|e| e.to_string())
+        } else {
+            Ok(None)
+        }
+    };
+    ModelDerived {
+        elements,
+        original: far(Direction::Original),
+        future: far(Direction::Future),
+        trend: trend_test(fit, observations),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_fit_epoch_is_a_whole_tdb_day() {
+        // JD 2461000.5 = 2025-09-18 0h; an arc centred on 2461000.8 moves
+        // to 2461000.5, one centred on 2461001.2 to 2461001.5.
+        let a = Epoch::from_tdb_jd(2_461_000.6, 0.0);
+        let b = Epoch::from_tdb_jd(2_461_001.0, 0.0);
+        let e = mid_arc_epoch(a, b);
+        assert!((e.tdb_jd() - 2_461_000.5).abs() < 1e-9, "{}", e.tdb_jd());
+        let b = Epoch::from_tdb_jd(2_461_001.8, 0.0);
+        let e = mid_arc_epoch(a, b);
+        assert!((e.tdb_jd() - 2_461_001.5).abs() < 1e-9, "{}", e.tdb_jd());
+    }
+}

@@ -1,0 +1,166 @@
+//! A solution as text for a person: the ladder as a table, the verdict in
+//! one sentence, then the recommended model's elements and what was
+//! rejected.
+
+use std::fmt::Write;
+
+use super::document::{ModelDocument, SolutionDocument, ValueSigma};
+
+/// Rejected observations listed in full up to this many.
+const REJECTED_LISTED: usize = 20;
+
+fn estimate(v: &ValueSigma, decimals: usize) -> String {
+    format!("{:.*} +/- {:.*}", decimals, v.value, decimals, v.sigma)
+}
+
+fn sci(v: &ValueSigma) -> String {
+    format!("{:+.4e} +/- {:.2e}", v.value, v.sigma)
+}
+
+fn or_dash<T>(v: Option<T>, f: impl Fn(T) -> String) -> String {
+    v.map_or_else(|| "-".to_string(), f)
+}
+
+/// The one-sentence answer to "does gravity alone still explain the data?"
+pub fn verdict(doc: &SolutionDocument) -> String {
+    let Some(recommended) = doc.models.iter().find(|m| m.recommended) else {
+        return "No model converged: the data do not determine an orbit yet.".into();
+    };
+    if recommended.terms.is_empty() {
+        format!(
+            "Gravity alone explains the data (largest non-gravitational significance {:.1} sigma \
+             over {} alternatives).",
+            doc.ng_significance_sigma, doc.alternatives
+        )
+    } else {
+        format!(
+            "Gravity alone does not explain the data: {} is justified at {:.1} sigma \
+             (Bonferroni over {} alternatives).",
+            recommended.name, doc.ng_significance_sigma, doc.alternatives
+        )
+    }
+}
+
+fn ladder_table(out: &mut String, doc: &SolutionDocument) {
+    let _ = writeln!(
+        out,
+        "  {:<28} {:>10} {:>5} {:>8} {:>6} {:>10} {:>8} {:>8}",
+        "model", "chi2", "dof", "rms\"", "nrms", "BIC", "test", "vs grav"
+    );
+    for m in &doc.models {
+        let mark = if m.recommended { '*' } else { ' ' };
+        let sigma = |t: &Option<super::document::TestDocument>| {
+            or_dash(t.as_ref(), |t| format!("{:.1}s", t.sigma))
+        };
+        if m.converged {
+            let _ = writeln!(
+                out,
+                "{mark} {:<28} {:>10.2} {:>5} {:>8.3} {:>6.3} {:>10.2} {:>8} {:>8}",
+                m.name,
+                m.chi2.unwrap_or(f64::NAN),
+                or_dash(m.dof, |d| d.to_string()),
+                m.rms_arcsec.unwrap_or(f64::NAN),
+                m.normalized_rms.unwrap_or(f64::NAN),
+                m.bic.unwrap_or(f64::NAN),
+                sigma(&m.test),
+                sigma(&m.test_against_gravity),
+            );
+        } else {
+            let _ = writeln!(
+                out,
+                "{mark} {:<28} not converged: {}",
+                m.name, m.termination
+            );
+        }
+    }
+}
+
+fn model_details(out: &mut String, doc: &SolutionDocument, m: &ModelDocument) {
+    let _ = writeln!(
+        out,
+        "\nModel {}: elements (heliocentric, ecliptic J2000, osculating at JD {:.1} TDB)",
+        m.name, doc.elements_epoch_tdb_jd
+    );
+    if let Some(e) = &m.elements {
+        let _ = writeln!(out, "  q     {} au", estimate(&e.q_au, 8));
+        let _ = writeln!(
+            out,
+            "  e     {}   ((e - 1)/sigma = {:+.1})",
+            estimate(&e.e, 8),
+            e.e_minus_one_sigmas
+        );
+        let _ = writeln!(out, "  i     {} deg", estimate(&e.i_deg, 6));
+        let _ = writeln!(out, "  node  {} deg", estimate(&e.node_deg, 6));
+        let _ = writeln!(out, "  peri  {} deg", estimate(&e.peri_deg, 6));
+        let _ = writeln!(out, "  Tp    JD {} TDB", estimate(&e.tp_tdb_jd, 6));
+        let _ = writeln!(out, "  1/a   {} 1/au", estimate(&e.one_over_a_per_au, 8));
+        if let Some(v) = &e.v_inf_km_s {
+            let _ = writeln!(out, "  v_inf {} km/s", estimate(v, 4));
+        }
+    }
+    for (name, v) in &m.nongrav {
+        let snr = m.nongrav_snr.get(name).copied().unwrap_or(f64::NAN);
+        let _ = writeln!(out, "  {name}    {} au/d^2  ({snr:.1} sigma)", sci(v));
+    }
+    for (label, a) in [
+        ("original", &m.one_over_a_original),
+        ("future", &m.one_over_a_future),
+    ] {
+        if let Some(a) = a {
+            let _ = writeln!(
+                out,
+                "  {label} barycentric 1/a {:.8} +/- {:.8} 1/au (at {:.0} au, JD {:.1} TDB)",
+                a.value, a.sigma, a.distance_au, a.tdb_jd
+            );
+        }
+    }
+    if let Some(t) = &m.trend {
+        let _ = writeln!(
+            out,
+            "  residual trend over {} nights: {:+.4} / {:+.4} arcsec/day (RA, Dec), p = {:.3}",
+            t.nights, t.slope_ra_arcsec_per_day.value, t.slope_dec_arcsec_per_day.value, t.p_value
+        );
+    }
+    for p in &m.problems {
+        let _ = writeln!(out, "  note: {p}");
+    }
+    let _ = writeln!(out, "  rejected: {}", m.rejected.len());
+    for r in m.rejected.iter().take(REJECTED_LISTED) {
+        let _ = writeln!(
+            out,
+            "    {}  {:<5} chi2 {:.1}",
+            r.obs_time, r.station, r.chi2
+        );
+    }
+    if m.rejected.len() > REJECTED_LISTED {
+        let _ = writeln!(
+            out,
+            "    ... and {} more (see --json)",
+            m.rejected.len() - REJECTED_LISTED
+        );
+    }
+}
+
+pub fn text(doc: &SolutionDocument) -> String {
+    let mut out = String::new();
+    let _ = writeln!(
+        out,
+        "Object {}: {} observations, {} used, arc {:.2} days ({} to {})",
+        doc.object, doc.n_obs, doc.n_used, doc.arc_days, doc.first_obs_utc, doc.last_obs_utc
+    );
+    let _ = writeln!(
+        out,
+        "Fit epoch JD {:.1} TDB; initial orbit by {} (rms {:.2}\"); ephemeris {}",
+        doc.epoch_tdb_jd, doc.initial_orbit.method, doc.initial_orbit.rms_arcsec, doc.ephemeris
+    );
+    let _ = writeln!(
+        out,
+        "\nModel ladder (* recommended; tests in Gaussian sigma):"
+    );
+    ladder_table(&mut out, doc);
+    let _ = writeln!(out, "\n{}", verdict(doc));
+    if let Some(m) = doc.models.iter().find(|m| m.recommended) {
+        model_details(&mut out, doc, m);
+    }
+    out
+}
