@@ -121,7 +121,6 @@ fn commands_not_built_yet_say_so_and_fail() {
         vec!["serve"],
         vec!["demo"],
         vec!["history", "2026 ZA7"],
-        vec!["fit", "docs/examples/invented-nights.psv"],
     ] {
         let out = perihelix().args(&args).output().unwrap();
         assert_eq!(out.status.code(), Some(3), "{args:?}");
