@@ -117,11 +117,7 @@ fn ingest_lists_rejected_lines_and_keeps_good_ones() {
 
 #[test]
 fn commands_not_built_yet_say_so_and_fail() {
-    for args in [
-        vec!["serve"],
-        vec!["demo"],
-        vec!["history", "2026 ZA7"],
-    ] {
+    for args in [vec!["serve"], vec!["demo"], vec!["history", "2026 ZA7"]] {
         let out = perihelix().args(&args).output().unwrap();
         assert_eq!(out.status.code(), Some(3), "{args:?}");
         assert!(String::from_utf8_lossy(&out.stderr).contains("not available yet"));

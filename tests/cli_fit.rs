@@ -1,0 +1,183 @@
+//! `perihelix fit` as a user runs it: the built binary on the synthetic
+//! astrometry of invented bodies (tests/reference/README.md), with the
+//! embedded default ephemeris and no configuration, as on a fresh machine.
+//! `--no-distant` skips the decades-long 1/a integrations, which the
+//! library tests cover.
+
+use std::path::Path;
+use std::process::{Command, Output};
+
+use serde_json::Value;
+
+const OUTGASSING: &str = "tests/reference/fixtures/synthetic/hyperbolic_outgassing/noisy.psv";
+const GRAVITY: &str = "tests/reference/fixtures/synthetic/hyperbolic_gravity/noisy.psv";
+
+fn perihelix(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_perihelix"))
+        .current_dir(env!("CARGO_MANIFEST_DIR"))
+        .args(args)
+        .output()
+        .expect("the binary runs")
+}
+
+fn stderr(out: &Output) -> String {
+    String::from_utf8_lossy(&out.stderr).into_owned()
+}
+
+fn fit_json(args: &[&str]) -> Value {
+    let mut all = vec!["fit", "--json", "--no-distant"];
+    all.extend_from_slice(args);
+    let out = perihelix(&all);
+    assert!(out.status.success(), "{}", stderr(&out));
+    serde_json::from_slice(&out.stdout).expect("one JSON document")
+}
+
+fn value_sigma(v: &Value, what: &str) -> (f64, f64) {
+    let value = v["value"].as_f64().unwrap_or_else(|| panic!("{what}: {v}"));
+    let sigma = v["sigma"].as_f64().unwrap_or_else(|| panic!("{what}: {v}"));
+    assert!(sigma > 0.0 && sigma.is_finite(), "{what}: {v}");
+    (value, sigma)
+}
+
+#[test]
+fn the_json_document_carries_the_whole_ladder() {
+    let doc = fit_json(&[OUTGASSING]);
+    assert_eq!(doc["object"], "provID:2026 ZB1");
+    // 610 rows in the fixture file (tests/reference/make_synthetic_astrometry.py).
+    assert_eq!(doc["n_obs"], 610);
+    let n_used = doc["n_used"].as_u64().unwrap();
+    assert!(n_used > 580 && n_used < 610, "{n_used}");
+    let arc = doc["arc_days"].as_f64().unwrap();
+    assert!((arc - 192.57).abs() < 0.01, "{arc}");
+    let epoch = doc["epoch_tdb_jd"].as_f64().unwrap();
+    assert_eq!(epoch.fract(), 0.5, "a whole TDB day");
+    // The fixture's A1 is made to stand out at 8 sigma or more.
+    assert!(doc["ng_significance_sigma"].as_f64().unwrap() > 5.0);
+
+    let models = doc["models"].as_array().unwrap();
+    // The default ladder: gravity, then four term sets under two laws.
+    assert_eq!(models.len(), 9);
+    assert_eq!(models[0]["name"], "gravity");
+    assert!(models[0]["law"].is_null());
+    let recommended: Vec<&Value> = models.iter().filter(|m| m["recommended"] == true).collect();
+    assert_eq!(recommended.len(), 1);
+    let best = recommended[0];
+    assert_eq!(best["terms"], serde_json::json!(["A1"]));
+    assert!(best["law"] == "water-ice" || best["law"] == "inverse-square");
+    let (a1, a1_sigma) = value_sigma(&best["nongrav"]["A1"], "A1");
+    assert!(a1 / a1_sigma > 8.0, "{a1} +/- {a1_sigma}");
+
+    for m in models.iter().filter(|m| m["converged"] == true) {
+        let name = m["name"].as_str().unwrap();
+        for key in ["chi2", "rms_arcsec", "normalized_rms", "bic"] {
+            assert!(m[key].as_f64().is_some(), "{name} {key}");
+        }
+        assert!(m["dof"].as_u64().unwrap() > 1000, "{name}");
+        let el = &m["elements"];
+        for key in [
+            "q_au",
+            "e",
+            "i_deg",
+            "node_deg",
+            "peri_deg",
+            "tp_tdb_jd",
+            "v_inf_km_s",
+        ] {
+            value_sigma(&el[key], &format!("{name} {key}"));
+        }
+        let (e, _) = value_sigma(&el["e"], "e");
+        assert!(
+            e > 1.5,
+            "{name}: the invented body is strongly hyperbolic, e {e}"
+        );
+        for r in m["rejected"].as_array().unwrap() {
+            assert!(r["obs_time"].as_str().unwrap().ends_with('Z'), "{r}");
+            assert!(r["station"].as_str().unwrap().starts_with("ZQ"), "{r}");
+            assert!(r["chi2"].as_f64().unwrap() > 0.0, "{r}");
+        }
+    }
+}
+
+#[test]
+fn elements_at_a_requested_epoch() {
+    let at = fit_json(&["--epoch", "2461250.5", OUTGASSING]);
+    assert_eq!(at["elements_epoch_tdb_jd"], 2461250.5);
+    let utc = fit_json(&["--epoch", "2026-08-05T00:00:00Z", OUTGASSING]);
+    // 2026-08-05 0h UTC is JD 2461257.5 UTC; TDB runs 69.18 s ahead of
+    // UTC in 2026 (37 leap seconds + 32.184 s; IERS Bulletin C).
+    let jd = utc["elements_epoch_tdb_jd"].as_f64().unwrap();
+    assert!(
+        (jd - (2_461_257.5 + 69.184 / 86_400.0)).abs() < 1e-6,
+        "{jd}"
+    );
+    // Tp is a constant of the orbit up to the perturbations: the two
+    // epochs give the same perihelion time to well under a day, but the
+    // osculating q moves.
+    let tp = |d: &Value| {
+        d["models"][0]["elements"]["tp_tdb_jd"]["value"]
+            .as_f64()
+            .unwrap()
+    };
+    assert!((tp(&at) - tp(&utc)).abs() < 0.1);
+}
+
+#[test]
+fn the_report_gives_the_verdict() {
+    let out = perihelix(&["fit", "--no-distant", OUTGASSING]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let text = String::from_utf8_lossy(&out.stdout);
+    assert!(
+        text.contains("Gravity alone does not explain the data"),
+        "{text}"
+    );
+    assert!(text.contains("A1 water-ice"), "{text}");
+}
+
+#[test]
+fn a_bad_line_is_reported_and_the_good_ones_fitted() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("night.psv");
+    let mut text =
+        std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join(GRAVITY)).unwrap();
+    let lines = text.lines().count();
+    text.push_str("2026 ZC2|CCD |ZQA|2026-08-21T02:28:28.642Z|north| 19.70815002| 0.45|  0.47|Gaia3 |17.5|V\n");
+    std::fs::write(&path, text).unwrap();
+    let out = perihelix(&["fit", "--json", "--no-distant", path.to_str().unwrap()]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let err = stderr(&out);
+    assert!(err.contains(&format!("night.psv:{}", lines + 1)), "{err}");
+    let doc: Value = serde_json::from_slice(&out.stdout).unwrap();
+    // 610 good rows: not one lost to the bad one.
+    assert_eq!(doc["n_obs"], 610);
+    assert_eq!(doc["recommended"], "gravity");
+}
+
+#[test]
+fn several_objects_need_a_choice() {
+    let out = perihelix(&["fit", "--no-distant", OUTGASSING, GRAVITY]);
+    assert!(!out.status.success());
+    let err = stderr(&out);
+    assert!(err.contains("2 objects; choose one with --object"), "{err}");
+    assert!(
+        err.contains("2026 ZB1") && err.contains("2026 ZC2"),
+        "{err}"
+    );
+    let doc = fit_json(&["--object", "provID:2026 ZC2", OUTGASSING, GRAVITY]);
+    assert_eq!(doc["object"], "provID:2026 ZC2");
+}
+
+#[test]
+fn a_bad_epoch_is_refused_with_the_reason() {
+    for (arg, why) in [
+        ("yesterday", "neither a Julian date"),
+        ("12.5", "between 2000000"),
+    ] {
+        let out = perihelix(&["fit", "--epoch", arg, OUTGASSING]);
+        assert!(!out.status.success(), "{arg}");
+        let err = stderr(&out);
+        assert!(
+            err.contains(&format!("--epoch {arg}")) && err.contains(why),
+            "{err}"
+        );
+    }
+}
