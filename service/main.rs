@@ -284,8 +284,7 @@ fn fit(
     for r in &solved.refused {
         eprintln!("not used: {r}");
     }
-    let doc =
-        perihelix::solve::document::SolutionDocument::new(&solved.solution, &solved.ephemeris);
+    let doc = perihelix::solve::document::SolutionDocument::new(&solved);
     if options.json {
         println!("{}", serde_json::to_string_pretty(&doc)?);
     } else {

@@ -181,3 +181,46 @@ fn a_bad_epoch_is_refused_with_the_reason() {
         );
     }
 }
+
+#[test]
+fn a_catalogue_bias_table_corrects_the_observations_it_covers() {
+    let dir = tempfile::tempdir().unwrap();
+    let repo = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let table = dir.path().join("bias.csv");
+    // An invented table: one box over the whole sky for the fixture's
+    // catalogue, 0.2 arcsec in Dec.
+    std::fs::write(&table, "Gaia3,0,360,-90,90,0.0,0.2,0,0,2016.0\n").unwrap();
+    let config = dir.path().join("config.toml");
+    std::fs::write(
+        &config,
+        format!(
+            "[directories]\nincoming = \"{d}/in\"\narchive = \"{d}/archive\"\n\
+             rejected = \"{d}/rejected\"\ndatabase = \"{d}/db\"\n[stations]\nfile = {:?}\n[fit]\ncatalog_bias_file = {:?}\n",
+            repo.join("config/stations.toml"),
+            table,
+            d = dir.path().display(),
+        ),
+    )
+    .unwrap();
+    let plain = fit_json(&[GRAVITY]);
+    let corrected = fit_json(&["--config", config.to_str().unwrap(), GRAVITY]);
+    assert!(plain.get("catalog_bias").is_none());
+    assert_eq!(corrected["catalog_bias"]["corrected"], 610);
+    assert_eq!(
+        corrected["catalog_bias"]["not_covered"],
+        serde_json::json!({})
+    );
+    // A 0.2 arcsec shift of every place moves the fitted orbit.
+    let i = |d: &Value| {
+        d["models"][0]["elements"]["i_deg"]["value"]
+            .as_f64()
+            .unwrap()
+    };
+    assert!((i(&plain) - i(&corrected)).abs() > 1e-6);
+
+    std::fs::write(&table, "Gaia3,0,360,-90,90,0.0,north,0,0,2016.0\n").unwrap();
+    let out = perihelix(&["fit", "--config", config.to_str().unwrap(), GRAVITY]);
+    assert!(!out.status.success());
+    let err = stderr(&out);
+    assert!(err.contains("bias.csv:1: field d_dec_arcsec"), "{err}");
+}

@@ -12,7 +12,8 @@ use crate::fit::lsq::{OrbitFit, Termination};
 use crate::fit::observe::AstrometricObservation;
 use crate::fit::solution::{DistantInverseA, ElementEstimates, Estimate, TrendTest};
 
-use super::{ModelDerived, Solution};
+use super::catalog_bias::BiasSummary;
+use super::{ModelDerived, RecordsSolved};
 
 /// Days from JD 0 to J2000 (JD 2451545.0 TDB).
 const J2000_JD: f64 = 2_451_545.0;
@@ -54,6 +55,10 @@ pub struct SolutionDocument {
     pub alternatives: usize,
     pub initial_orbit: InitialDocument,
     pub ephemeris: String,
+    /// What the configured star-catalogue bias table corrected (absent
+    /// when none is configured).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub catalog_bias: Option<BiasSummary>,
     pub models: Vec<ModelDocument>,
 }
 
@@ -318,7 +323,8 @@ fn model_document(
 }
 
 impl SolutionDocument {
-    pub fn new(solution: &Solution, ephemeris: &str) -> Self {
+    pub fn new(solved: &RecordsSolved) -> Self {
+        let solution = &solved.solution;
         let ladder = &solution.ladder;
         let method = match &solution.initial.method {
             crate::fit::initial::Method::Gauss { .. } => "gauss",
@@ -357,7 +363,8 @@ impl SolutionDocument {
                 rms_arcsec: solution.initial.rms_arcsec,
                 scored_observations: solution.initial.scored_observations,
             },
-            ephemeris: ephemeris.to_string(),
+            ephemeris: solved.ephemeris.clone(),
+            catalog_bias: solved.catalog_bias.clone(),
             models: ladder
                 .models
                 .iter()

@@ -4,6 +4,7 @@
 //! The science in [`crate::fit`] never sees records, files or the
 //! configuration; this module is where they meet it:
 //! - [`input`]: records to fitter observations (time scales, observer places).
+//! - [`catalog_bias`]: the user's star-catalogue bias table, if any.
 //! - [`settings`]: the configuration's fit section to the fitter's settings.
 //! - [`sources`]: the ephemeris the configuration names, sized to an arc.
 //! - [`document`]: a solution as the JSON document the commands and the API
@@ -16,6 +17,7 @@
 //! epoch or the fit's), the original and future barycentric 1/a and the
 //! residual trend test.
 
+pub mod catalog_bias;
 pub mod document;
 pub mod input;
 pub mod report;
@@ -73,6 +75,8 @@ pub enum SolveError {
     TimeScales(#[from] crate::astro::time::TimeError),
     #[error("{0}")]
     Source(#[from] sources::SourceError),
+    #[error("{0}")]
+    CatalogBias(#[from] catalog_bias::BiasTableError),
     #[error("force model: {0}")]
     Model(#[from] crate::astro::forces::ForceModelError),
     #[error("initial orbit: {0}")]
@@ -249,6 +253,8 @@ pub struct RecordsSolved {
     pub solution: Solution,
     /// Where the Sun, planets and Moon came from.
     pub ephemeris: String,
+    /// What the configured catalogue bias table corrected.
+    pub catalog_bias: Option<catalog_bias::BiasSummary>,
     pub refused: Vec<input::InputError>,
 }
 
@@ -273,7 +279,14 @@ pub fn solve_records(
 ) -> Result<RecordsSolved, SolveError> {
     let scales = time_scales(config)?;
     let (kept, refused) = input::astrometric_all(records, &config.stations, &scales);
-    let observations: Vec<AstrometricObservation> = kept.into_iter().map(|(_, o)| o).collect();
+    let catalogs: Vec<Option<&str>> = kept.iter().map(|(i, _)| records[*i].ast_cat()).collect();
+    let mut observations: Vec<AstrometricObservation> = kept.into_iter().map(|(_, o)| o).collect();
+    let catalog_bias = match &config.fit.catalog_bias_file {
+        Some(path) => {
+            Some(catalog_bias::BiasTable::from_file(path)?.correct(&mut observations, &catalogs))
+        }
+        None => None,
+    };
     let ephemeris = sources::open(&config.ephemeris)?;
     let mut settings = settings::solve_settings(&config.fit, &config.stations)?;
     settings.elements_epoch = elements_epoch;
@@ -282,6 +295,7 @@ pub fn solve_records(
     Ok(RecordsSolved {
         solution,
         ephemeris: ephemeris.describe(),
+        catalog_bias,
         refused,
     })
 }

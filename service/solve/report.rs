@@ -153,6 +153,21 @@ pub fn text(doc: &SolutionDocument) -> String {
         "Fit epoch JD {:.1} TDB; initial orbit by {} (rms {:.2}\"); ephemeris {}",
         doc.epoch_tdb_jd, doc.initial_orbit.method, doc.initial_orbit.rms_arcsec, doc.ephemeris
     );
+    if let Some(b) = &doc.catalog_bias {
+        let mut line = format!(
+            "Catalogue bias: {} observations corrected from {}",
+            b.corrected, b.table
+        );
+        if !b.not_covered.is_empty() {
+            let gaps: Vec<String> = b
+                .not_covered
+                .iter()
+                .map(|(c, n)| format!("{c} {n}"))
+                .collect();
+            line.push_str(&format!("; not covered: {}", gaps.join(", ")));
+        }
+        let _ = writeln!(out, "{line}");
+    }
     let _ = writeln!(
         out,
         "\nModel ladder (* recommended; tests in Gaussian sigma):"
