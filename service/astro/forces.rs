@@ -15,6 +15,18 @@
 //! - a_NG = g(r) (A1 r_hat + A2 t_hat + A3 n_hat) (Marsden, Sekanina &
 //!   Yeomans 1973, AJ 78, 211).
 //!
+//! With [`Origin::Barycentre`] the state is barycentric instead: the same
+//! terms evaluated at the heliocentric place r - r_sun, without the
+//! indirect term (the barycentre does not accelerate). Far from the Sun the
+//! indirect term dominates the heliocentric acceleration and oscillates
+//! with the inner planets' periods, which holds an integrator to steps of
+//! days; the barycentric acceleration is smooth there, which is what the
+//! decades-long integrations to the original and future orbits need.
+//! Beyond the planets ([`ForceModel::far_field`]) the Sun and the inner
+//! planets act as one mass at their common centre, which follows from the
+//! outer planets alone (the barycentre is fixed): no inner body has to be
+//! looked up, and nothing left varies faster than Jupiter's orbit.
+//!
 //! Everything the ephemeris contributes at one epoch is gathered once into a
 //! [`PerturberPositions`], so an integrator that evaluates the acceleration
 //! several times at the same epoch (a predictor-corrector does) asks the
@@ -27,7 +39,7 @@ use nalgebra::{Matrix3, Vector3};
 use thiserror::Error;
 
 use super::constants::{gm, C_AU_PER_DAY};
-use super::ephemeris::{Body, Ephemeris, EphemerisError};
+use super::ephemeris::{Body, Ephemeris, EphemerisError, StateVector};
 use super::time::Epoch;
 
 /// Water-ice sublimation law constants (Marsden, Sekanina & Yeomans 1973,
@@ -176,6 +188,16 @@ pub enum ForceModelError {
     BadCentralGm { gm: f64 },
 }
 
+/// The origin of the state the equations of motion integrate.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Origin {
+    /// The Sun's centre (the fit's frame).
+    #[default]
+    Sun,
+    /// The Solar System barycentre.
+    Barycentre,
+}
+
 /// Which forces act on the small body.
 #[derive(Debug, Clone, PartialEq)]
 pub struct ForceModel {
@@ -185,6 +207,10 @@ pub struct ForceModel {
     /// GM of the central term: the Sun's, unless a body is integrated that
     /// itself has mass (a planet's mass joins the central term).
     central_gm: f64,
+    origin: Origin,
+    /// The far-field form: the central mass is the Sun with the inner
+    /// planets, at their centre of mass (only made by [`Self::far_field`]).
+    inner_merged: bool,
 }
 
 impl ForceModel {
@@ -224,6 +250,8 @@ impl ForceModel {
             relativity,
             nongrav,
             central_gm: gm::SUN,
+            origin: Origin::Sun,
+            inner_merged: false,
         })
     }
 
@@ -234,6 +262,8 @@ impl ForceModel {
             relativity: false,
             nongrav: None,
             central_gm: gm::SUN,
+            origin: Origin::Sun,
+            inner_merged: false,
         }
     }
 
@@ -244,14 +274,18 @@ impl ForceModel {
             relativity: true,
             nongrav: None,
             central_gm: gm::SUN,
+            origin: Origin::Sun,
+            inner_merged: false,
         }
     }
 
     /// This model with a non-gravitational term added (validated).
     pub fn with_nongrav(self, nongrav: NonGravModel) -> Result<Self, ForceModelError> {
-        let central_gm = self.central_gm;
+        let (central_gm, origin, inner_merged) = (self.central_gm, self.origin, self.inner_merged);
         Ok(Self {
             central_gm,
+            origin,
+            inner_merged,
             ..Self::new(&self.perturbers, self.relativity, Some(nongrav))?
         })
     }
@@ -284,7 +318,53 @@ impl ForceModel {
             relativity: self.relativity,
             nongrav: None,
             central_gm: self.central_gm,
+            origin: self.origin,
+            inner_merged: self.inner_merged,
         }
+    }
+
+    /// This model integrating a state with origin `origin`.
+    pub fn with_origin(self, origin: Origin) -> Self {
+        Self { origin, ..self }
+    }
+
+    /// This model's far-field form for a body beyond the planets, in
+    /// barycentric coordinates: the Sun and the inner bodies among the
+    /// perturbers (Mercury to Mars and the Moon) become one central mass
+    /// at their common centre, `-sum_outer GM_p b_p / GM_inner` with b_p
+    /// the outer planets' barycentric places. Their neglected quadrupole
+    /// is about GM_earth (1 au)^2 / r^4 against GM_sun / r^2, 3e-9 of the
+    /// acceleration at 30 au.
+    pub fn far_field(&self) -> Self {
+        let inner = |b: &Body| {
+            matches!(
+                b,
+                Body::Mercury | Body::Venus | Body::Earth | Body::Moon | Body::Mars
+            )
+        };
+        let merged: f64 = self
+            .perturbers
+            .iter()
+            .filter(|b| inner(b))
+            .map(|b| b.gm())
+            .sum();
+        Self {
+            perturbers: self
+                .perturbers
+                .iter()
+                .copied()
+                .filter(|b| !inner(b))
+                .collect(),
+            relativity: self.relativity,
+            nongrav: self.nongrav,
+            central_gm: self.central_gm + merged,
+            origin: Origin::Barycentre,
+            inner_merged: true,
+        }
+    }
+
+    pub fn origin(&self) -> Origin {
+        self.origin
     }
 
     pub fn perturbers(&self) -> &[Body] {
@@ -317,6 +397,26 @@ impl ForceModel {
         t: Epoch,
     ) -> Result<PerturberPositions, EphemerisError> {
         let mut out = PerturberPositions::empty();
+        if self.inner_merged {
+            let mut outer = Vec::with_capacity(self.perturbers.len());
+            let (mut moment, mut moment_rate) = (Vector3::zeros(), Vector3::zeros());
+            for body in &self.perturbers {
+                let b = ephemeris.state(*body, t)?;
+                moment += b.position_au * body.gm();
+                moment_rate += b.velocity_au_per_day * body.gm();
+                outer.push((body.gm(), b.position_au));
+            }
+            let centre =
+                StateVector::new(-moment / self.central_gm, -moment_rate / self.central_gm);
+            for (gm_p, b) in outer {
+                out.push(gm_p, b - centre.position_au);
+            }
+            out.sun = Some(centre);
+            return Ok(out);
+        }
+        if self.origin == Origin::Barycentre {
+            out.sun = Some(ephemeris.state(Body::Sun, t)?);
+        }
         for body in &self.perturbers {
             let position = ephemeris.heliocentric_state(*body, t)?.position_au;
             out.push(body.gm(), position);
@@ -331,9 +431,10 @@ impl ForceModel {
         r: &Vector3<f64>,
         v: &Vector3<f64>,
     ) -> Vector3<f64> {
+        let (r, v) = &at.heliocentric(r, v);
         let mut a = central(self.central_gm, r);
         for (gm_p, r_p) in at.iter() {
-            a += planet_direct(gm_p, r_p, r) - r_p * (gm_p / r_p.norm().powi(3));
+            a += planet_direct(gm_p, r_p, r) - at.indirect(gm_p, r_p);
         }
         if self.relativity {
             a += relativity(r, v);
@@ -355,11 +456,14 @@ impl ForceModel {
         r: &Vector3<f64>,
         v: &Vector3<f64>,
     ) -> (Vector3<f64>, AccelerationPartials) {
+        // The origin's shift depends on time alone: the partials with
+        // respect to the state are the same in either origin.
+        let (r, v) = &at.heliocentric(r, v);
         let mut partials = AccelerationPartials::zero();
         let mut a = central(self.central_gm, r);
         partials.d_position += point_mass_gradient(self.central_gm, r);
         for (gm_p, r_p) in at.iter() {
-            a += planet_direct(gm_p, r_p, r) - r_p * (gm_p / r_p.norm().powi(3));
+            a += planet_direct(gm_p, r_p, r) - at.indirect(gm_p, r_p);
             // The indirect term does not depend on the small body.
             partials.d_position += planet_direct_gradient(gm_p, r_p, r);
         }
@@ -434,6 +538,9 @@ pub struct PerturberPositions {
     position_au: [Vector3<f64>; MAX_PERTURBERS],
     count: usize,
     lagged_distance_au: Option<f64>,
+    /// The Sun's barycentric state when the integrated state is
+    /// barycentric ([`Origin::Barycentre`]).
+    sun: Option<StateVector>,
 }
 
 impl PerturberPositions {
@@ -444,6 +551,7 @@ impl PerturberPositions {
             position_au: [Vector3::zeros(); MAX_PERTURBERS],
             count: 0,
             lagged_distance_au: None,
+            sun: None,
         }
     }
 
@@ -471,6 +579,24 @@ impl PerturberPositions {
             .iter()
             .copied()
             .zip(self.position_au[..self.count].iter())
+    }
+
+    /// The small body's heliocentric position and velocity from the
+    /// integrated state.
+    fn heliocentric(&self, r: &Vector3<f64>, v: &Vector3<f64>) -> (Vector3<f64>, Vector3<f64>) {
+        match &self.sun {
+            Some(sun) => (r - sun.position_au, v - sun.velocity_au_per_day),
+            None => (*r, *v),
+        }
+    }
+
+    /// The Sun's acceleration towards a perturber at heliocentric `r_p`:
+    /// what a heliocentric state must subtract, and a barycentric one not.
+    fn indirect(&self, gm_p: f64, r_p: &Vector3<f64>) -> Vector3<f64> {
+        match self.sun {
+            Some(_) => Vector3::zeros(),
+            None => r_p * (gm_p / r_p.norm().powi(3)),
+        }
     }
 
     fn nongrav_distance(&self, r: &Vector3<f64>) -> f64 {

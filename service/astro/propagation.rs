@@ -24,8 +24,8 @@ use nalgebra::{Matrix6, Matrix6xX, Vector3};
 use thiserror::Error;
 
 use super::constants::gm;
-use super::ephemeris::{Ephemeris, EphemerisError, StateVector};
-use super::forces::{ForceModel, PerturberPositions};
+use super::ephemeris::{Body, Ephemeris, EphemerisError, StateVector};
+use super::forces::{ForceModel, Origin, PerturberPositions};
 use super::integrator::{
     integrate, DenseOutput, IntegrationError, IntegrationStats, RadauSettings, SecondOrderSystem,
 };
@@ -350,9 +350,17 @@ impl SecondOrderSystem for Equations<'_> {
                 } else {
                     lagged
                 };
-                match reference.state_with_partials(lagged) {
-                    Ok(p) => {
-                        let r = p.state.position_au;
+                let origin = match self.model.origin() {
+                    Origin::Sun => Ok(Vector3::zeros()),
+                    Origin::Barycentre => self
+                        .ephemeris
+                        .state(Body::Sun, lagged)
+                        .map(|sun| sun.position_au),
+                };
+                match (reference.state_with_partials(lagged), origin) {
+                    (Ok(p), Ok(sun)) => {
+                        // The law wants the heliocentric distance.
+                        let r = p.state.position_au - sun;
                         let radius = r.norm();
                         // d |r_lag| / d y0 = r_lag_hat^T (position rows of the STM).
                         let gradient = (r / radius).transpose() * p.stm.fixed_rows::<3>(0);
@@ -363,7 +371,7 @@ impl SecondOrderSystem for Equations<'_> {
                             lag_gradient: Some(lag_gradient),
                         }
                     }
-                    Err(_) => Node {
+                    _ => Node {
                         positions,
                         lag_gradient: None,
                     },

@@ -13,6 +13,7 @@ use thiserror::Error;
 use crate::astro::constants::gm;
 use crate::astro::elements::{CometaryElements, ElementsError};
 use crate::astro::ephemeris::{Body, Ephemeris, EphemerisError, StateVector};
+use crate::astro::forces::Origin;
 use crate::astro::propagation::{PropagationError, PropagationSettings, Trajectory};
 use crate::astro::time::Epoch;
 
@@ -23,6 +24,12 @@ use super::stats::chi2_ln_sf;
 /// Barycentric distance beyond which 1/a counts as "original" or "future"
 /// (Marsden, Sekanina & Everhart 1978, AJ 83, 64; memory).
 pub const ORIGINAL_FUTURE_DISTANCE_AU: f64 = 250.0;
+
+/// Barycentric distance beyond which the original and future integrations
+/// switch to the far-field forces ([`crate::astro::forces::ForceModel::far_field`]):
+/// outside Neptune's orbit, where the inner planets' neglected quadrupole
+/// is 3e-9 of the acceleration.
+const FAR_FIELD_AU: f64 = 30.0;
 
 /// Longest look back or ahead for the original and future 1/a, days.
 const ORIGINAL_FUTURE_HORIZON_DAYS: f64 = 200.0 * 365.25;
@@ -178,6 +185,13 @@ pub enum Direction {
 /// that ends part-way still leaves the farthest point reached. None for an
 /// orbit whose aphelion lies inside that distance: it never leaves the
 /// planetary region, and only its osculating elements mean anything.
+///
+/// The integration runs in barycentric coordinates (the same forces, see
+/// [`Origin::Barycentre`]): far out the heliocentric acceleration is
+/// dominated by the Sun's own wobble, which would hold the integrator to
+/// steps of days for decades. The shift of origin depends on time alone,
+/// so the state transition matrix is the same in either frame. Stretches
+/// that start beyond [`FAR_FIELD_AU`] use the far-field forces.
 pub fn distant_inverse_a(
     ephemeris: &dyn Ephemeris,
     fit: &OrbitFit,
@@ -200,8 +214,14 @@ pub fn distant_inverse_a(
         ..*propagation
     };
     let n = covariance.nrows();
+    let near = fit.model.clone().with_origin(Origin::Barycentre);
+    let far = fit.model.far_field();
+    let sun = ephemeris.state(Body::Sun, fit.epoch)?;
     let mut phi = DMatrix::identity(n, n);
-    let mut state = fit.state;
+    let mut state = StateVector::new(
+        fit.state.position_au + sun.position_au,
+        fit.state.velocity_au_per_day + sun.velocity_au_per_day,
+    );
     let mut epoch = fit.epoch;
     let mut stretch = 365.25;
     let mut travelled = 0.0;
@@ -213,8 +233,13 @@ pub fn distant_inverse_a(
         } else {
             (epoch, next)
         };
+        let model = if state.position_au.norm() > FAR_FIELD_AU {
+            &far
+        } else {
+            &near
+        };
         let Ok(trajectory) =
-            Trajectory::integrate(ephemeris, &fit.model, epoch, &state, start, end, &settings)
+            Trajectory::integrate(ephemeris, model, epoch, &state, start, end, &settings)
         else {
             break;
         };
@@ -224,22 +249,16 @@ pub fn distant_inverse_a(
         epoch = next;
         travelled += stretch;
         stretch *= 2.0;
-        let sun = match ephemeris.state(Body::Sun, epoch) {
-            Ok(s) => s,
-            Err(_) => break,
-        };
         last = Some((epoch, state, phi.clone()));
-        let bary = state.position_au + sun.position_au;
-        if bary.norm() >= ORIGINAL_FUTURE_DISTANCE_AU {
+        if state.position_au.norm() >= ORIGINAL_FUTURE_DISTANCE_AU {
             break;
         }
     }
-    let Some((at, helio, phi)) = last else {
+    let Some((at, barycentric, phi)) = last else {
         return Ok(None);
     };
-    let sun = ephemeris.state(Body::Sun, at)?;
-    let r = helio.position_au + sun.position_au;
-    let v = helio.velocity_au_per_day + sun.velocity_au_per_day;
+    let r = barycentric.position_au;
+    let v = barycentric.velocity_au_per_day;
     let mu = gm::SOLAR_SYSTEM_TOTAL;
     let rn = r.norm();
     let value = 2.0 / rn - v.norm_squared() / mu;
