@@ -15,37 +15,11 @@ use perihelix::fit::solution::{
     distant_inverse_a, elements_with_sigmas, parameters_at, trend_test, Direction,
 };
 
-use common::{de421, load, Synthetic};
+use common::{calibration_settings, chi2_999, de421, load, mahalanobis2, Synthetic};
 
-/// chi^2 quantile 0.999: 7 dof 24.32, 6 dof 22.46, 8 dof 26.12 (Abramowitz
-/// & Stegun, Handbook of Mathematical Functions, table 26.8; memory).
-fn chi2_999(k: usize) -> f64 {
-    match k {
-        6 => 22.458,
-        7 => 24.322,
-        8 => 26.124,
-        9 => 27.877,
-        _ => panic!("no quantile for {k}"),
-    }
-}
-
-fn truth_vector(body: &Synthetic, free: FreeParameters) -> DVector<f64> {
-    let mut v: Vec<f64> = body
-        .state
-        .position_au
-        .iter()
-        .chain(body.state.velocity_au_per_day.iter())
-        .copied()
-        .collect();
-    v.extend(free.indices().map(|i| body.a_au_per_day2[i]));
-    DVector::from_vec(v)
-}
-
-fn mahalanobis2(fit: &OrbitFit, truth: &DVector<f64>) -> f64 {
-    let c = fit.covariance.as_ref().expect("a covariance");
-    let d = &fit.parameters - truth;
-    let ci = c.clone().try_inverse().expect("invertible covariance");
-    (d.transpose() * ci * &d)[(0, 0)]
+/// The truth's parameters at the fit's epoch.
+fn truth_vector(body: &Synthetic, fit: &OrbitFit, free: FreeParameters) -> DVector<f64> {
+    body.truth_vector(&de421(), free, fit.epoch)
 }
 
 fn fit(body: &Synthetic, free: FreeParameters, settings: &FitSettings) -> OrbitFit {
@@ -60,9 +34,7 @@ fn fit(body: &Synthetic, free: FreeParameters, settings: &FitSettings) -> OrbitF
 }
 
 fn no_inflation() -> FitSettings {
-    let mut s = FitSettings::default();
-    s.weights.night_inflation = false;
-    s
+    calibration_settings()
 }
 
 #[test]
@@ -70,7 +42,7 @@ fn outgassing_body_from_truth() {
     let body = load("hyperbolic_outgassing");
     let free = FreeParameters::new(true, false, false);
     let f = fit(&body, free, &no_inflation());
-    let truth = truth_vector(&body, free);
+    let truth = truth_vector(&body, &f, free);
     let d2 = mahalanobis2(&f, &truth);
     let rejected: Vec<usize> = f
         .residuals
@@ -160,7 +132,7 @@ fn check_body(name: &str, expected_terms: FreeParameters) -> Ladder {
         rec.name()
     );
     let f = rec.converged_fit().expect("converged");
-    let d2 = mahalanobis2(f, &truth_vector(&body, rec.free));
+    let d2 = mahalanobis2(f, &truth_vector(&body, f, rec.free));
     let k = rec.parameter_count();
     println!("{name}: d2 {d2:.2} for k = {k}");
     assert!(d2 < chi2_999(k), "{name}: d2 {d2} above the 0.999 quantile");

@@ -6,14 +6,16 @@
 
 use std::path::{Path, PathBuf};
 
-use nalgebra::Vector3;
+use nalgebra::{DMatrix, DVector, Vector3};
 use serde_json::Value;
 
-use perihelix::astro::ephemeris::{Body, StateVector};
+use perihelix::astro::ephemeris::{Body, Ephemeris, StateVector};
 use perihelix::astro::forces::{DistanceLaw, ForceModel, FreeParameters, NonGravModel};
+use perihelix::astro::propagation::{PropagationSettings, Trajectory};
 use perihelix::astro::spk::SpkEphemeris;
 use perihelix::astro::time::{Epoch, TimeScales};
 use perihelix::config::{load_stations, StationList};
+use perihelix::fit::lsq::{fit_orbit, FitProblem, FitSettings, OrbitFit, Termination};
 use perihelix::fit::observe::AstrometricObservation;
 use perihelix::ingest::read_file;
 use perihelix::solve::input::astrometric_all;
@@ -167,6 +169,62 @@ impl Synthetic {
             .unwrap()
     }
 
+    /// The A_i the truth carries (its non-zero ones): the model structure
+    /// the data were made with.
+    pub fn truth_free(&self) -> FreeParameters {
+        let a = self.a_au_per_day2;
+        FreeParameters::new(a[0] != 0.0, a[1] != 0.0, a[2] != 0.0)
+    }
+
+    /// The true state at `epoch`: the truth state itself at the truth
+    /// epoch, else carried there under the truth's full force model.
+    pub fn truth_state_at(&self, ephemeris: &dyn Ephemeris, epoch: Epoch) -> StateVector {
+        if epoch == self.epoch {
+            return self.state;
+        }
+        let model = self.model(self.truth_free());
+        let settings = PropagationSettings {
+            partials: false,
+            ..PropagationSettings::default()
+        };
+        let (start, end) = if epoch < self.epoch {
+            (epoch, self.epoch)
+        } else {
+            (self.epoch, epoch)
+        };
+        Trajectory::integrate(
+            ephemeris,
+            &model,
+            self.epoch,
+            &self.state,
+            start,
+            end,
+            &settings,
+        )
+        .and_then(|t| t.state(epoch))
+        .expect("the truth state propagates")
+    }
+
+    /// The true fitted-parameter vector of a fit at `epoch` with `free`
+    /// A_i: (x, y, z au, vx, vy, vz au/day, the free A_i au/day^2), in the
+    /// order of [`OrbitFit::parameters`].
+    pub fn truth_vector(
+        &self,
+        ephemeris: &dyn Ephemeris,
+        free: FreeParameters,
+        epoch: Epoch,
+    ) -> DVector<f64> {
+        let state = self.truth_state_at(ephemeris, epoch);
+        let mut v: Vec<f64> = state
+            .position_au
+            .iter()
+            .chain(state.velocity_au_per_day.iter())
+            .copied()
+            .collect();
+        v.extend(free.indices().map(|i| self.a_au_per_day2[i]));
+        DVector::from_vec(v)
+    }
+
     /// A fresh noise realisation of the clean rows with the stated sigmas,
     /// without outliers.
     pub fn realisation(&self, seed: u64) -> Vec<AstrometricObservation> {
@@ -219,5 +277,149 @@ impl Gaussian {
         let (s, c) = (std::f64::consts::TAU * u2).sin_cos();
         self.spare = Some(r * s);
         r * c
+    }
+}
+
+/// d^2 = (p - p_true)^T C^-1 (p - p_true) with the fit's own covariance C.
+///
+/// C mixes au, au/day and au/day^2 (entries from ~1e-12 down to ~1e-20),
+/// so it is solved in its correlation form: with s = sqrt(diag C),
+/// d^2 = z^T R^-1 z for z = (p - p_true) / s and R = C / (s s^T), which a
+/// Cholesky factorisation handles at full precision.
+pub fn mahalanobis2(fit: &OrbitFit, truth: &DVector<f64>) -> f64 {
+    let c = fit.covariance.as_ref().expect("a covariance");
+    mahalanobis2_with(c, &(&fit.parameters - truth))
+}
+
+pub fn mahalanobis2_with(covariance: &DMatrix<f64>, difference: &DVector<f64>) -> f64 {
+    let s = covariance.diagonal().map(f64::sqrt);
+    assert!(
+        s.iter().all(|x| x.is_finite() && *x > 0.0),
+        "covariance with a non-positive variance: {s}"
+    );
+    let correlation = DMatrix::from_fn(covariance.nrows(), covariance.ncols(), |i, j| {
+        covariance[(i, j)] / (s[i] * s[j])
+    });
+    let z = difference.component_div(&s);
+    let cholesky = correlation
+        .cholesky()
+        .expect("positive definite covariance");
+    z.dot(&cholesky.solve(&z))
+}
+
+/// chi^2_k 0.999 quantiles for k = 6..9 parameters: scipy 1.17.1
+/// `scipy.stats.chi2.ppf(0.999, k)` (numpy 2.4.6); they agree to the
+/// printed digits with Abramowitz & Stegun, Handbook of Mathematical
+/// Functions, table 26.8 (22.458, 24.322, 26.124, 27.877).
+pub fn chi2_999(k: usize) -> f64 {
+    match k {
+        6 => 22.457_744_484_825_323,
+        7 => 24.321_886_347_856_854,
+        8 => 26.124_481_558_376_14,
+        9 => 27.877_164_871_256_568,
+        _ => panic!("no chi^2 0.999 quantile for {k} degrees of freedom"),
+    }
+}
+
+/// Settings of a calibration fit: the production ones with the per-night
+/// inflation off, so the weights are the noise's own sigmas and d^2 of the
+/// truth-structure model should follow chi^2_k.
+pub fn calibration_settings() -> FitSettings {
+    let mut s = FitSettings::default();
+    s.weights.night_inflation = false;
+    s
+}
+
+/// One noise realisation fitted at `epoch` with the truth's model
+/// structure (the truth's law and its non-zero A_i free), starting from
+/// the true state there (initial orbits are checked elsewhere).
+pub fn calibration_fit(
+    body: &Synthetic,
+    ephemeris: &dyn Ephemeris,
+    epoch: Epoch,
+    seed: u64,
+    settings: &FitSettings,
+) -> CalibrationSample {
+    let observations = body.realisation(seed);
+    let free = body.truth_free();
+    let model = body.model(free);
+    let problem = FitProblem {
+        ephemeris,
+        model: &model,
+        observations: &observations,
+    };
+    let start = body.truth_state_at(ephemeris, epoch);
+    let fit = fit_orbit(&problem, epoch, &start, settings).expect("fit runs");
+    let truth = body.truth_vector(ephemeris, free, fit.epoch);
+    CalibrationSample {
+        seed,
+        d2: mahalanobis2(&fit, &truth),
+        normalised_rms: fit.normalised_rms,
+        converged: fit.termination == Termination::Converged,
+        rejected: fit.residuals.iter().filter(|r| !r.used).count(),
+        k: fit.parameters.len(),
+    }
+}
+
+/// What one calibration fit gave.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CalibrationSample {
+    pub seed: u64,
+    pub d2: f64,
+    pub normalised_rms: f64,
+    pub converged: bool,
+    /// Observations the outlier rejection left out.
+    pub rejected: usize,
+    /// Fitted parameters.
+    pub k: usize,
+}
+
+/// d^2 over R realisations against what chi^2_k predicts.
+///
+/// A chi^2_k variable has mean k and variance 2k, so the mean of R
+/// independent ones has standard deviation sqrt(2k / R) = k sqrt(2 / (kR));
+/// the bound is that mean +- 3 such sigma, k (1 -+ 3 sqrt(2 / (kR))), as
+/// the acceptance criterion states (mean k and variance 2k of chi^2_k:
+/// any statistics text, e.g. Abramowitz & Stegun section 26.4; memory).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Calibration {
+    pub realisations: usize,
+    pub k: usize,
+    pub mean_d2: f64,
+    pub bound_low: f64,
+    pub bound_high: f64,
+    /// Realisations with d^2 above the chi^2_k 0.999 quantile.
+    pub above_999: usize,
+    pub mean_normalised_rms: f64,
+    /// Realisations whose fit did not converge.
+    pub not_converged: usize,
+    pub mean_rejected: f64,
+}
+
+impl Calibration {
+    pub fn of(samples: &[CalibrationSample]) -> Self {
+        assert!(!samples.is_empty(), "no realisations");
+        let k = samples[0].k;
+        assert!(samples.iter().all(|s| s.k == k), "mixed parameter counts");
+        let r = samples.len();
+        let mean =
+            |f: &dyn Fn(&CalibrationSample) -> f64| samples.iter().map(f).sum::<f64>() / r as f64;
+        let half_width = 3.0 * (2.0 / (k as f64 * r as f64)).sqrt();
+        let q = chi2_999(k);
+        Self {
+            realisations: r,
+            k,
+            mean_d2: mean(&|s| s.d2),
+            bound_low: k as f64 * (1.0 - half_width),
+            bound_high: k as f64 * (1.0 + half_width),
+            above_999: samples.iter().filter(|s| s.d2 > q).count(),
+            mean_normalised_rms: mean(&|s| s.normalised_rms),
+            not_converged: samples.iter().filter(|s| !s.converged).count(),
+            mean_rejected: mean(&|s| s.rejected as f64),
+        }
+    }
+
+    pub fn within_bound(&self) -> bool {
+        (self.bound_low..=self.bound_high).contains(&self.mean_d2)
     }
 }
