@@ -12,7 +12,6 @@ use nalgebra::DVector;
 
 use perihelix::astro::ephemeris::StateVector;
 use perihelix::astro::forces::{ForceModel, FreeParameters, NonGravModel};
-use perihelix::astro::propagation::{PropagationSettings, Trajectory};
 use perihelix::astro::spk::SpkEphemeris;
 use perihelix::astro::time::Epoch;
 use perihelix::fit::extend::{fit_by_extension, ExtensionSettings};
@@ -46,32 +45,21 @@ fn model_from_zero(body: &Synthetic, free: FreeParameters) -> ForceModel {
     }
 }
 
-/// The true state at `epoch` along the truth model's trajectory.
+/// The true state at `epoch` along the truth model's trajectory (`free`
+/// is always the truth's own set here).
 fn true_state(
     eph: &SpkEphemeris,
     body: &Synthetic,
     free: FreeParameters,
     epoch: Epoch,
 ) -> StateVector {
-    // 1e-11, not 1e-12: at 1e-12 the step control stalls on the way back
-    // from the truth epoch of the hyperbolic bodies (at TDB J2000 + 9617.14).
-    let settings = PropagationSettings {
-        partials: false,
-        tolerance: 1e-11,
-        ..PropagationSettings::default()
-    };
-    Trajectory::integrate(
-        eph,
-        &body.model(free),
-        body.epoch,
-        &body.state,
-        epoch,
-        epoch,
-        &settings,
-    )
-    .expect("truth integrates")
-    .state(epoch)
-    .expect("epoch inside the arc")
+    assert_eq!(
+        free,
+        body.truth_free(),
+        "{}: not the truth's terms",
+        body.name
+    );
+    body.truth_state_at(eph, epoch)
 }
 
 /// The fit of the whole arc started from the truth at `epoch`.
