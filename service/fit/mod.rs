@@ -11,6 +11,9 @@
 //! - [`consistency`]: the chi^2 of new observations against a solution.
 //! - [`stats`]: tail probabilities and equivalent Gaussian sigmas.
 //! - [`photometry`]: brightness laws (M1/K1, H/G), outburst and activity flags.
+//! - [`predict`]: places, rates, geometry and the sky-plane uncertainty
+//!   ellipse (linear or Monte Carlo) at times to come.
+//! - [`sampling`]: seeded normal deviates and multivariate normal draws.
 //! - [`extend`]: a fit grown from a few nights to the whole arc.
 //! - [`initial`]: initial orbits from the observations alone (Gauss's
 //!   method, systematic ranging), scored by their residual RMS.
@@ -24,6 +27,8 @@ pub mod ladder;
 pub mod lsq;
 pub mod observe;
 pub mod photometry;
+pub mod predict;
+pub mod sampling;
 pub mod solution;
 pub mod stats;
 pub mod weights;
