@@ -8,7 +8,11 @@ use clap::{Parser, Subcommand};
 
 use perihelix::astro::time::{Epoch, UtcTime};
 use perihelix::config::{load_stations, Config, ConfigError, StationList};
+use perihelix::fit::predict::{
+    predict_places, EllipseMethod, PredictSettings, PredictionPoint, MIN_SAMPLES,
+};
 use perihelix::ingest::{DesignationKey, ObjectObservations};
+use perihelix::solve::prediction::{utc_grid, GridError, PredictionDocument};
 
 /// Keeps a small body's orbit right while observations keep coming in.
 ///
@@ -61,10 +65,13 @@ enum Command {
         #[arg(long)]
         no_distant: bool,
     },
-    /// Predict positions and their uncertainty for a station and time grid.
+    /// Predict positions and their uncertainty for a station and time grid:
+    /// the orbit is fitted from the files first, as `fit` does.
     Predict {
+        /// Observation files (.psv, .xml, .jsonl).
         #[arg(required = true)]
         files: Vec<PathBuf>,
+        /// The observing station's code (from the station list).
         #[arg(long)]
         station: String,
         /// First time (ISO 8601 UTC).
@@ -74,10 +81,29 @@ enum Command {
         #[arg(long)]
         to: String,
         /// Step in days.
-        #[arg(long)]
+        #[arg(long, allow_negative_numbers = true)]
         step: f64,
         #[arg(long, short)]
         config: Option<PathBuf>,
+        /// Station list, overriding the configuration's.
+        #[arg(long)]
+        stations: Option<PathBuf>,
+        /// The object when the files hold several.
+        #[arg(long)]
+        object: Option<String>,
+        /// The ladder model to predict from, by its name in the fit report
+        /// (e.g. "gravity", "A1 water-ice"); default the recommended one.
+        #[arg(long)]
+        model: Option<String>,
+        /// Make the uncertainty ellipse from this many samples of the
+        /// covariance, each propagated through the full force model
+        /// (default: the linear covariance map).
+        #[arg(long, value_name = "SAMPLES")]
+        monte_carlo: Option<usize>,
+        /// Seed of the Monte Carlo samples.
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
+        /// Print one JSON document instead of the table.
         #[arg(long)]
         json: bool,
     },
@@ -164,7 +190,37 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 distant: !no_distant,
             },
         ),
-        Command::Predict { .. } => not_yet("predict", "orbit determination"),
+        Command::Predict {
+            files,
+            station,
+            from,
+            to,
+            step,
+            config,
+            stations,
+            object,
+            model,
+            monte_carlo,
+            seed,
+            json,
+        } => predict(
+            &files,
+            config.as_deref(),
+            stations.as_deref(),
+            &PredictOptions {
+                station,
+                from,
+                to,
+                step_days: step,
+                object,
+                model,
+                method: match monte_carlo {
+                    None => EllipseMethod::Linear,
+                    Some(samples) => EllipseMethod::MonteCarlo { samples, seed },
+                },
+                json,
+            },
+        ),
         Command::History { .. } => not_yet("history", "the solution store"),
         Command::Demo { .. } => not_yet("demo", "the daemon"),
     }
@@ -289,6 +345,122 @@ fn fit(
         println!("{}", serde_json::to_string_pretty(&doc)?);
     } else {
         print!("{}", perihelix::solve::report::text(&doc));
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+/// How `predict` runs and reports, beyond the files and configuration.
+struct PredictOptions {
+    station: String,
+    from: String,
+    to: String,
+    step_days: f64,
+    object: Option<String>,
+    model: Option<String>,
+    method: EllipseMethod,
+    json: bool,
+}
+
+fn predict(
+    files: &[PathBuf],
+    config: Option<&Path>,
+    stations: Option<&Path>,
+    options: &PredictOptions,
+) -> Result<ExitCode> {
+    let cfg = configuration(config, stations)?;
+    // Everything the request itself can get wrong is checked before the
+    // fit, which takes seconds.
+    if let EllipseMethod::MonteCarlo { samples, .. } = options.method {
+        anyhow::ensure!(
+            samples >= MIN_SAMPLES,
+            "--monte-carlo {samples}: at least {MIN_SAMPLES} samples are needed for a sample covariance"
+        );
+    }
+    let observer = perihelix::solve::input::station_position(&cfg.stations, &options.station)
+        .map_err(|e| {
+            let known: Vec<&str> = cfg.stations.iter().map(|s| s.code.as_str()).collect();
+            anyhow::anyhow!(
+                "--station {}: {e} (the list has: {})",
+                options.station,
+                if known.is_empty() {
+                    "no stations".to_string()
+                } else {
+                    known.join(", ")
+                }
+            )
+        })?;
+    let parse = |option: &str, text: &str| {
+        UtcTime::parse_iso8601(text).map_err(|e| anyhow::anyhow!("{option} {text}: {e}"))
+    };
+    let from = parse("--from", &options.from)?;
+    let to = parse("--to", &options.to)?;
+    let scales = perihelix::solve::time_scales(&cfg)?;
+    let times = utc_grid(&from, &to, options.step_days, &scales).map_err(|e| {
+        let option = match e {
+            GridError::EndBeforeStart { .. } => "--to",
+            GridError::Step { .. } => "--step",
+            GridError::TooManyPoints { .. } => "--from/--to/--step",
+            GridError::Time(_) => "--from/--to",
+        };
+        anyhow::anyhow!("{option}: {e}")
+    })?;
+
+    let outcome = perihelix::ingest::ingest_files(files, &cfg.stations, &cfg.links);
+    for r in &outcome.summary.rejected {
+        eprintln!("rejected: {r}");
+    }
+    let object = pick_object(&outcome.objects, options.object.as_deref())?;
+    let name = object
+        .designations
+        .first()
+        .map_or_else(|| object.id.to_string(), ToString::to_string);
+    let solved = perihelix::solve::solve_records(&cfg, &name, &object.observations, None, false)?;
+    for r in &solved.refused {
+        eprintln!("not used: {r}");
+    }
+    let ladder = &solved.solution.ladder;
+    let chosen = match options.model.as_deref() {
+        None => ladder
+            .recommended_model()
+            .ok_or_else(|| anyhow::anyhow!("no model of the ladder converged"))?,
+        Some(wanted) => ladder
+            .models
+            .iter()
+            .find(|m| m.name() == wanted)
+            .ok_or_else(|| {
+                let names: Vec<String> = ladder.models.iter().map(|m| m.name()).collect();
+                anyhow::anyhow!(
+                    "--model {wanted:?}: no such model; the ladder has: {}",
+                    names.join(", ")
+                )
+            })?,
+    };
+    let fit = chosen.converged_fit().ok_or_else(|| {
+        anyhow::anyhow!("--model {:?}: that model did not converge", chosen.name())
+    })?;
+    let ephemeris = perihelix::solve::sources::open(&cfg.ephemeris)?;
+    let points: Vec<PredictionPoint> = times
+        .into_iter()
+        .map(|time| PredictionPoint { time, observer })
+        .collect();
+    // The fit's own integrator settings (the defaults) carry the orbit on.
+    let settings = PredictSettings {
+        method: options.method,
+        ..PredictSettings::default()
+    };
+    let places = predict_places(&ephemeris, fit, &points, &settings)?;
+    let doc = PredictionDocument::new(
+        &name,
+        &chosen.name(),
+        options.method,
+        &solved.ephemeris,
+        &options.station,
+        &places,
+    );
+    if options.json {
+        println!("{}", serde_json::to_string_pretty(&doc)?);
+    } else {
+        print!("{}", doc.text());
     }
     Ok(ExitCode::SUCCESS)
 }

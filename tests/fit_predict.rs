@@ -77,8 +77,13 @@ fn ellipse_methods_agree_and_contain_the_truth() {
     };
 
     let started = Instant::now();
-    let linear = predict_places(&eph, &fit, &[point.clone()], &PredictSettings::default())
-        .expect("linear prediction");
+    let linear = predict_places(
+        &eph,
+        &fit,
+        std::slice::from_ref(&point),
+        &PredictSettings::default(),
+    )
+    .expect("linear prediction");
     let linear_s = started.elapsed().as_secs_f64();
     let started = Instant::now();
     let mc_settings = PredictSettings {
@@ -88,7 +93,8 @@ fn ellipse_methods_agree_and_contain_the_truth() {
         },
         ..PredictSettings::default()
     };
-    let mc = predict_places(&eph, &fit, &[point.clone()], &mc_settings).expect("Monte Carlo");
+    let mc = predict_places(&eph, &fit, std::slice::from_ref(&point), &mc_settings)
+        .expect("Monte Carlo");
     let mc_s = started.elapsed().as_secs_f64();
     let (l, m) = (&linear[0], &mc[0]);
     assert_eq!(l.ellipse_source, EllipseSource::Linear);

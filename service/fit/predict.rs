@@ -378,12 +378,12 @@ pub fn predict_places(
             seed,
             &settings.propagation,
         )?;
-        for (place, (c, mean)) in places.iter_mut().zip(spread) {
-            place.ellipse = SkyEllipse::from_covariance(c);
+        for (place, moments) in places.iter_mut().zip(spread) {
+            place.ellipse = SkyEllipse::from_covariance(moments.covariance());
             place.ellipse_source = EllipseSource::MonteCarlo {
                 samples,
                 seed,
-                mean_offset_arcsec: mean,
+                mean_offset_arcsec: moments.mean,
             };
         }
     }
@@ -433,7 +433,7 @@ fn monte_carlo(
     samples: usize,
     seed: u64,
     propagation: &PropagationSettings,
-) -> Result<Vec<(Matrix2<f64>, Vector2<f64>)>, PredictError> {
+) -> Result<Vec<Moments>, PredictError> {
     let distribution = MultivariateNormal::new(fit.parameters.clone(), covariance)?;
     let mut rng = Gaussian::new(seed);
     let mut moments = vec![Moments::new(); observers.len()];
@@ -459,7 +459,7 @@ fn monte_carlo(
             moments[index].add(place.offset_arcsec(s.ra_rad, s.dec_rad));
         }
     }
-    Ok(moments.iter().map(|m| (m.covariance(), m.mean)).collect())
+    Ok(moments)
 }
 
 #[cfg(test)]

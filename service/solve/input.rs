@@ -49,6 +49,31 @@ pub enum InputError {
     },
 }
 
+/// Why a station code gives no observer place.
+#[derive(Debug, Error, Clone, PartialEq)]
+pub enum StationError {
+    #[error("station {station} is not in the station list")]
+    Unknown { station: String },
+    #[error("station {station}: {reason}")]
+    Site { station: String, reason: String },
+}
+
+/// The observer place of a station in the list: its WGS84 site.
+pub fn station_position(
+    stations: &StationList,
+    code: &str,
+) -> Result<ObserverPosition, StationError> {
+    let s = stations.get(code).ok_or_else(|| StationError::Unknown {
+        station: code.to_string(),
+    })?;
+    GeodeticSite::new(s.longitude_deg, s.latitude_deg, s.height_m)
+        .map(ObserverPosition::Geodetic)
+        .map_err(|e| StationError::Site {
+            station: code.to_string(),
+            reason: e.to_string(),
+        })
+}
+
 /// Converts one record.
 pub fn astrometric(
     observation: &Observation,
@@ -109,19 +134,19 @@ pub fn astrometric(
                 }
             }
         }
-        None => {
-            let s = stations
-                .get(station)
-                .ok_or_else(|| InputError::UnknownStation {
-                    file: file(),
-                    line,
-                    station: station.to_string(),
-                })?;
-            ObserverPosition::Geodetic(
-                GeodeticSite::new(s.longitude_deg, s.latitude_deg, s.height_m)
-                    .map_err(site_error)?,
-            )
-        }
+        None => station_position(stations, station).map_err(|e| match e {
+            StationError::Unknown { station } => InputError::UnknownStation {
+                file: file(),
+                line,
+                station,
+            },
+            StationError::Site { station, reason } => InputError::Site {
+                file: file(),
+                line,
+                station,
+                reason,
+            },
+        })?,
     };
     Ok(AstrometricObservation {
         time: utc,

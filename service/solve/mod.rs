@@ -10,6 +10,8 @@
 //! - [`document`]: a solution as the JSON document the commands and the API
 //!   return.
 //! - [`report`]: the same solution as text for a person.
+//! - [`prediction`]: the time grid of a prediction request, and the
+//!   predicted places as a JSON document and a table.
 //!
 //! The job: an initial orbit from the observations alone, its state carried
 //! to a round epoch near the middle of the arc, the whole model ladder, and
@@ -20,6 +22,7 @@
 pub mod catalog_bias;
 pub mod document;
 pub mod input;
+pub mod prediction;
 pub mod report;
 pub mod settings;
 pub mod sources;
