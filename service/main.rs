@@ -438,7 +438,6 @@ fn predict(
     let fit = chosen.converged_fit().ok_or_else(|| {
         anyhow::anyhow!("--model {:?}: that model did not converge", chosen.name())
     })?;
-    let ephemeris = perihelix::solve::sources::open(&cfg.ephemeris)?;
     let points: Vec<PredictionPoint> = times
         .into_iter()
         .map(|time| PredictionPoint { time, observer })
@@ -448,12 +447,12 @@ fn predict(
         method: options.method,
         ..PredictSettings::default()
     };
-    let places = predict_places(&ephemeris, fit, &points, &settings)?;
+    let places = predict_places(&solved.ephemeris, fit, &points, &settings)?;
     let doc = PredictionDocument::new(
         &name,
         &chosen.name(),
         options.method,
-        &solved.ephemeris,
+        &solved.ephemeris.describe(),
         &options.station,
         &places,
     );

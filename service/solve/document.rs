@@ -363,7 +363,7 @@ impl SolutionDocument {
                 rms_arcsec: solution.initial.rms_arcsec,
                 scored_observations: solution.initial.scored_observations,
             },
-            ephemeris: solved.ephemeris.clone(),
+            ephemeris: solved.ephemeris.describe(),
             catalog_bias: solved.catalog_bias.clone(),
             models: ladder
                 .models

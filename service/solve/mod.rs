@@ -254,8 +254,9 @@ pub fn solve(
 /// the rest are fitted.
 pub struct RecordsSolved {
     pub solution: Solution,
-    /// Where the Sun, planets and Moon came from.
-    pub ephemeris: String,
+    /// Where the Sun, planets and Moon came from, kept open for what the
+    /// caller does next with the solution (predictions, consistency).
+    pub ephemeris: sources::EphemerisSource,
     /// What the configured catalogue bias table corrected.
     pub catalog_bias: Option<catalog_bias::BiasSummary>,
     pub refused: Vec<input::InputError>,
@@ -297,7 +298,7 @@ pub fn solve_records(
     let solution = solve(&ephemeris, object, observations, &settings)?;
     Ok(RecordsSolved {
         solution,
-        ephemeris: ephemeris.describe(),
+        ephemeris,
         catalog_bias,
         refused,
     })

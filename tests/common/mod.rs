@@ -17,6 +17,7 @@ use perihelix::astro::time::{Epoch, TimeScales};
 use perihelix::config::{load_stations, StationList};
 use perihelix::fit::lsq::{fit_orbit, FitProblem, FitSettings, OrbitFit, Termination};
 use perihelix::fit::observe::AstrometricObservation;
+use perihelix::fit::sampling::Gaussian;
 use perihelix::ingest::read_file;
 use perihelix::solve::input::astrometric_all;
 
@@ -239,48 +240,11 @@ impl Synthetic {
                 let mut o = o.clone();
                 let sra = o.sigma_ra_arcsec.unwrap() / 206_264.806_247_096_36;
                 let sdec = o.sigma_dec_arcsec.unwrap() / 206_264.806_247_096_36;
-                o.ra_rad += rng.next() * sra / o.dec_rad.cos();
-                o.dec_rad += rng.next() * sdec;
+                o.ra_rad += rng.next_normal() * sra / o.dec_rad.cos();
+                o.dec_rad += rng.next_normal() * sdec;
                 o
             })
             .collect()
-    }
-}
-
-/// Standard normal deviates: splitmix64 (Steele, Lea & Flood 2014) feeding
-/// the Box-Muller transform; enough for noise in tests, and reproducible
-/// without a dependency.
-pub struct Gaussian {
-    state: u64,
-    spare: Option<f64>,
-}
-
-impl Gaussian {
-    pub fn new(seed: u64) -> Self {
-        Self {
-            state: seed,
-            spare: None,
-        }
-    }
-
-    fn uniform(&mut self) -> f64 {
-        self.state = self.state.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.state;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^= z >> 31;
-        ((z >> 11) as f64 + 0.5) / (1u64 << 53) as f64
-    }
-
-    pub fn next(&mut self) -> f64 {
-        if let Some(s) = self.spare.take() {
-            return s;
-        }
-        let (u1, u2) = (self.uniform(), self.uniform());
-        let r = (-2.0 * u1.ln()).sqrt();
-        let (s, c) = (std::f64::consts::TAU * u2).sin_cos();
-        self.spare = Some(r * s);
-        r * c
     }
 }
 
