@@ -445,6 +445,8 @@ fn predict(
     // The fit's own integrator settings (the defaults) carry the orbit on.
     let settings = PredictSettings {
         method: options.method,
+        // Magnitudes from the brightness law the observations support.
+        magnitude: solved.brightness.as_ref().and_then(|b| b.law),
         ..PredictSettings::default()
     };
     let places = predict_places(&solved.ephemeris, fit, &points, &settings)?;

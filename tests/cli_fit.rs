@@ -99,6 +99,32 @@ fn the_json_document_carries_the_whole_ladder() {
 }
 
 #[test]
+fn the_brightness_laws_recover_the_fixture_magnitudes() {
+    // The fixture magnitudes follow m = 12.5 + 5 log10(Delta) + 10 log10(r)
+    // for the outgassing body and H = 16 with 0.035 mag/deg of phase for
+    // the inert one, rounded to 0.1 mag (tests/reference/
+    // make_synthetic_astrometry.py, `magnitudes`).
+    let active = fit_json(&[OUTGASSING]);
+    let p = &active["photometry"];
+    assert_eq!(p["measurements"], 610);
+    assert_eq!(p["preferred"], "total");
+    let (m1, m1_sigma) = value_sigma(&p["total"]["m1"], "M1");
+    let (k1, k1_sigma) = value_sigma(&p["total"]["k1"], "K1");
+    assert!((m1 - 12.5).abs() < 3.0 * m1_sigma, "M1 {m1} +/- {m1_sigma}");
+    assert!((k1 - 10.0).abs() < 3.0 * k1_sigma, "K1 {k1} +/- {k1_sigma}");
+    // K1 = 10 against the inert 5: an active body.
+    assert!(p["total"]["activity_sigma"].as_f64().unwrap() > 10.0);
+
+    // The inert body's linear phase law is not the (H, G) law, but (H, G)
+    // describes it far better than a total law without a phase term.
+    let inert = fit_json(&[GRAVITY]);
+    let p = &inert["photometry"];
+    assert_eq!(p["preferred"], "hg");
+    let (h, _) = value_sigma(&p["hg"]["h"], "H");
+    assert!((h - 16.0).abs() < 0.5, "H {h}");
+}
+
+#[test]
 fn elements_at_a_requested_epoch() {
     let at = fit_json(&["--epoch", "2461250.5", OUTGASSING]);
     assert_eq!(at["elements_epoch_tdb_jd"], 2461250.5);

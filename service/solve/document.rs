@@ -12,6 +12,7 @@ use crate::fit::lsq::{OrbitFit, Termination};
 use crate::fit::observe::AstrometricObservation;
 use crate::fit::solution::{DistantInverseA, ElementEstimates, Estimate, TrendTest};
 
+use super::brightness::BrightnessDocument;
 use super::catalog_bias::BiasSummary;
 use super::{ModelDerived, RecordsSolved};
 
@@ -59,6 +60,9 @@ pub struct SolutionDocument {
     /// when none is configured).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub catalog_bias: Option<BiasSummary>,
+    /// The brightness laws at the recommended orbit, when magnitudes came
+    /// with the astrometry.
+    pub photometry: Option<BrightnessDocument>,
     pub models: Vec<ModelDocument>,
 }
 
@@ -365,6 +369,7 @@ impl SolutionDocument {
             },
             ephemeris: solved.ephemeris.describe(),
             catalog_bias: solved.catalog_bias.clone(),
+            photometry: solved.brightness.clone(),
             models: ladder
                 .models
                 .iter()

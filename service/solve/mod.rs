@@ -5,6 +5,7 @@
 //! configuration; this module is where they meet it:
 //! - [`input`]: records to fitter observations (time scales, observer places).
 //! - [`catalog_bias`]: the user's star-catalogue bias table, if any.
+//! - [`brightness`]: the brightness laws at the fitted orbit's geometry.
 //! - [`settings`]: the configuration's fit section to the fitter's settings.
 //! - [`sources`]: the ephemeris the configuration names, sized to an arc.
 //! - [`document`]: a solution as the JSON document the commands and the API
@@ -19,6 +20,7 @@
 //! epoch or the fit's), the original and future barycentric 1/a and the
 //! residual trend test.
 
+pub mod brightness;
 pub mod catalog_bias;
 pub mod document;
 pub mod input;
@@ -259,6 +261,9 @@ pub struct RecordsSolved {
     pub ephemeris: sources::EphemerisSource,
     /// What the configured catalogue bias table corrected.
     pub catalog_bias: Option<catalog_bias::BiasSummary>,
+    /// The brightness laws at the recommended orbit (None without
+    /// magnitudes or without a converged model).
+    pub brightness: Option<brightness::BrightnessDocument>,
     pub refused: Vec<input::InputError>,
 }
 
@@ -284,6 +289,19 @@ pub fn solve_records(
     let scales = time_scales(config)?;
     let (kept, refused) = input::astrometric_all(records, &config.stations, &scales);
     let catalogs: Vec<Option<&str>> = kept.iter().map(|(i, _)| records[*i].ast_cat()).collect();
+    let magnitudes: Vec<brightness::MagnitudeRecord> = kept
+        .iter()
+        .enumerate()
+        .filter_map(|(index, (i, _))| {
+            let r = &records[*i];
+            Some(brightness::MagnitudeRecord {
+                index,
+                mag: r.mag?,
+                band: r.band().map(str::to_string),
+                sigma_mag: r.rms_mag,
+            })
+        })
+        .collect();
     let mut observations: Vec<AstrometricObservation> = kept.into_iter().map(|(_, o)| o).collect();
     let catalog_bias = match &config.fit.catalog_bias_file {
         Some(path) => {
@@ -296,10 +314,20 @@ pub fn solve_records(
     settings.elements_epoch = elements_epoch;
     settings.distant_inverse_a = distant;
     let solution = solve(&ephemeris, object, observations, &settings)?;
+    let brightness = solution.recommended_fit().and_then(|fit| {
+        brightness::brightness(
+            &ephemeris,
+            fit,
+            &solution.observations,
+            &magnitudes,
+            &crate::fit::photometry::PhotometrySettings::default(),
+        )
+    });
     Ok(RecordsSolved {
         solution,
         ephemeris,
         catalog_bias,
+        brightness,
         refused,
     })
 }

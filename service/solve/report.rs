@@ -4,6 +4,7 @@
 
 use std::fmt::Write;
 
+use super::brightness::BrightnessDocument;
 use super::document::{ModelDocument, SolutionDocument, ValueSigma};
 
 /// Rejected observations listed in full up to this many.
@@ -177,5 +178,59 @@ pub fn text(doc: &SolutionDocument) -> String {
     if let Some(m) = doc.models.iter().find(|m| m.recommended) {
         model_details(&mut out, doc, m);
     }
+    if let Some(p) = &doc.photometry {
+        brightness_details(&mut out, p);
+    }
     out
+}
+
+fn brightness_details(out: &mut String, p: &BrightnessDocument) {
+    let _ = writeln!(
+        out,
+        "
+Brightness ({} magnitudes, at the recommended orbit's geometry):",
+        p.measurements
+    );
+    let mark = |law: &str| if p.preferred == Some(law) { "*" } else { " " };
+    if let Some(t) = &p.total {
+        let k1 = if t.k1_fixed {
+            format!("{:.2} (fixed)", t.k1.value)
+        } else {
+            format!("{:.2} +/- {:.2}", t.k1.value, t.k1.sigma)
+        };
+        let _ = writeln!(
+            out,
+            "{} total law  M1 {:.2} +/- {:.2}  K1 {k1}  nrms {:.2}  {} used, {} rejected, {} brighter than the law{}",
+            mark("total"),
+            t.m1.value,
+            t.m1.sigma,
+            t.summary.normalized_rms,
+            t.summary.used,
+            t.summary.rejected,
+            t.summary.departures.len(),
+            t.activity_sigma
+                .map_or(String::new(), |s| format!("; K1 far from 5 at {s:.1} sigma")),
+        );
+    }
+    if let Some(h) = &p.hg {
+        let g = if h.g_fixed {
+            format!("{:.2} (fixed)", h.g.value)
+        } else {
+            format!("{:.2} +/- {:.2}", h.g.value, h.g.sigma)
+        };
+        let _ = writeln!(
+            out,
+            "{} (H, G) law  H {:.2} +/- {:.2}  G {g}  nrms {:.2}  {} used, {} rejected, {} brighter than the law",
+            mark("hg"),
+            h.h.value,
+            h.h.sigma,
+            h.summary.normalized_rms,
+            h.summary.used,
+            h.summary.rejected,
+            h.summary.departures.len(),
+        );
+    }
+    for problem in &p.problems {
+        let _ = writeln!(out, "  note: {problem}");
+    }
 }
