@@ -26,8 +26,10 @@ use crate::astro::ephemeris::{Ephemeris, StateVector};
 use crate::astro::forces::{DistanceLaw, ForceModel, FreeParameters, NonGravModel};
 use crate::astro::time::Epoch;
 
-use super::lsq::{fit_orbit_from, FitError, FitProblem, FitSettings, OrbitFit, Termination};
-use super::observe::AstrometricObservation;
+use super::lsq::{
+    fit_orbit_observed, observer_places, FitError, FitProblem, FitSettings, OrbitFit, Termination,
+};
+use super::observe::{AstrometricObservation, ObserverAt};
 use super::stats::{bonferroni_ln_p, chi2_ln_sf, f_ln_sf, sigma_of_ln_p};
 
 /// Term names in component order.
@@ -235,15 +237,26 @@ pub fn fit_ladder(
         }
     }
     let all = vec![true; observations.len()];
+    // The observer places are the same for every model: computed once
+    // (the Earth's orientation at each observation is costly).
+    let observers = observer_places(&FitProblem {
+        ephemeris,
+        model: &gravity,
+        observations,
+    })?;
+    let data = Data {
+        ephemeris,
+        observations,
+        observers: &observers,
+    };
 
     // Pass 1: each model with rejection, warm-started from its parent.
     // Gravity failing outright (too few observations, a bad start) ends
     // the ladder: every other model starts from it.
     let first = fit_model(
-        ephemeris,
+        &data,
         &gravity,
         &models[0],
-        observations,
         epoch,
         start,
         None,
@@ -258,10 +271,9 @@ pub fn fit_ladder(
             Err(_) => (*start, [0.0; 3], all.clone()),
         };
         models[i].fit = fit_model(
-            ephemeris,
+            &data,
             &gravity,
             &models[i],
-            observations,
             epoch,
             &state,
             Some(a),
@@ -302,10 +314,9 @@ pub fn fit_ladder(
             },
         };
         models[i].fit = fit_model(
-            ephemeris,
+            &data,
             &gravity,
             &models[i],
-            observations,
             epoch,
             &state,
             Some(a),
@@ -345,12 +356,18 @@ fn nongrav_values(f: &OrbitFit) -> [f64; 3] {
     a
 }
 
+/// What every model of the ladder is fitted to.
+struct Data<'a> {
+    ephemeris: &'a dyn Ephemeris,
+    observations: &'a [AstrometricObservation],
+    observers: &'a [ObserverAt],
+}
+
 #[allow(clippy::too_many_arguments)]
 fn fit_model(
-    ephemeris: &dyn Ephemeris,
+    data: &Data,
     gravity: &ForceModel,
     model: &ModelFit,
-    observations: &[AstrometricObservation],
     epoch: Epoch,
     start: &StateVector,
     start_a: Option<[f64; 3]>,
@@ -372,11 +389,11 @@ fn fit_model(
         }
     };
     let problem = FitProblem {
-        ephemeris,
+        ephemeris: data.ephemeris,
         model: &force,
-        observations,
+        observations: data.observations,
     };
-    fit_orbit_from(&problem, epoch, start, settings, used)
+    fit_orbit_observed(&problem, data.observers, epoch, start, settings, used)
 }
 
 /// Likelihood-ratio test of `rich` against `simple`.

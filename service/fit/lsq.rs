@@ -111,6 +111,11 @@ pub enum FitError {
     },
     #[error("{flags} used-set flags for {observations} observations")]
     UsedSetLength { flags: usize, observations: usize },
+    #[error("{observers} observer places for {observations} observations")]
+    ObserverCount {
+        observers: usize,
+        observations: usize,
+    },
     #[error("observation {index}: {source}")]
     Observer { index: usize, source: ObserveError },
     #[error("the starting orbit cannot be evaluated: {0}")]
@@ -187,7 +192,7 @@ struct Evaluation {
 struct Setup<'a> {
     problem: &'a FitProblem<'a>,
     settings: &'a FitSettings,
-    observers: Vec<ObserverAt>,
+    observers: &'a [ObserverAt],
     epoch: Epoch,
     start: Epoch,
     end: Epoch,
@@ -236,7 +241,7 @@ impl Setup<'_> {
             partials: Vec::with_capacity(if partials { n } else { 0 }),
             rates: Vec::with_capacity(n),
         };
-        for (o, at) in self.problem.observations.iter().zip(&self.observers) {
+        for (o, at) in self.problem.observations.iter().zip(self.observers) {
             let p = predict(&trajectory, self.problem.ephemeris, at, partials)?;
             out.residuals.push(residual_arcsec(o, &p));
             out.rates.push(p.rate_arcsec_per_s);
@@ -474,6 +479,36 @@ fn observation_chi2(
         .collect()
 }
 
+/// The free A_i components and the parameter count, once the used set is
+/// known to fit the observations and to give enough equations.
+fn check_used_set(
+    problem: &FitProblem,
+    start_used: &[bool],
+) -> Result<(Vec<usize>, usize), FitError> {
+    let observations = problem.observations;
+    if start_used.len() != observations.len() {
+        return Err(FitError::UsedSetLength {
+            flags: start_used.len(),
+            observations: observations.len(),
+        });
+    }
+    let free: Vec<usize> = problem
+        .model
+        .nongrav()
+        .map(|ng| ng.free.indices().collect())
+        .unwrap_or_default();
+    let n = 6 + free.len();
+    let in_use = start_used.iter().filter(|u| **u).count();
+    if 2 * in_use < n || in_use == 0 {
+        return Err(FitError::TooFewObservations {
+            used: in_use,
+            rows: 2 * in_use,
+            parameters: n,
+        });
+    }
+    Ok((free, n))
+}
+
 /// Fits the heliocentric state at `epoch` (starting from `start`) and the
 /// model's free A_i to the observations.
 pub fn fit_orbit(
@@ -496,35 +531,45 @@ pub fn fit_orbit_from(
     settings: &FitSettings,
     start_used: &[bool],
 ) -> Result<OrbitFit, FitError> {
-    let observations = problem.observations;
-    if start_used.len() != observations.len() {
-        return Err(FitError::UsedSetLength {
-            flags: start_used.len(),
-            observations: observations.len(),
-        });
-    }
-    let free: Vec<usize> = problem
-        .model
-        .nongrav()
-        .map(|ng| ng.free.indices().collect())
-        .unwrap_or_default();
-    let n = 6 + free.len();
-    let in_use = start_used.iter().filter(|u| **u).count();
-    if 2 * in_use < n || in_use == 0 {
-        return Err(FitError::TooFewObservations {
-            used: in_use,
-            rows: 2 * in_use,
-            parameters: n,
-        });
-    }
-    let observers = observations
+    check_used_set(problem, start_used)?;
+    let observers = observer_places(problem)?;
+    fit_orbit_observed(problem, &observers, epoch, start, settings, start_used)
+}
+
+/// Where the observer of each observation was, from the problem's
+/// ephemeris. The places do not depend on the orbit or the force model, so
+/// a caller fitting several models to the same observations computes them
+/// once and hands them to [`fit_orbit_observed`].
+pub fn observer_places(problem: &FitProblem) -> Result<Vec<ObserverAt>, FitError> {
+    problem
+        .observations
         .iter()
         .enumerate()
         .map(|(index, o)| {
             ObserverAt::of(o, problem.ephemeris)
                 .map_err(|source| FitError::Observer { index, source })
         })
-        .collect::<Result<Vec<_>, _>>()?;
+        .collect()
+}
+
+/// [`fit_orbit_from`] with the observer places already known (one per
+/// observation, from [`observer_places`] with the same ephemeris).
+pub fn fit_orbit_observed(
+    problem: &FitProblem,
+    observers: &[ObserverAt],
+    epoch: Epoch,
+    start: &StateVector,
+    settings: &FitSettings,
+    start_used: &[bool],
+) -> Result<OrbitFit, FitError> {
+    let observations = problem.observations;
+    let (free, n) = check_used_set(problem, start_used)?;
+    if observers.len() != observations.len() {
+        return Err(FitError::ObserverCount {
+            observers: observers.len(),
+            observations: observations.len(),
+        });
+    }
     let first = observers
         .iter()
         .map(|o| o.tdb)
