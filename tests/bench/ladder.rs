@@ -80,13 +80,11 @@ fn scenario(eph: &dyn Ephemeris) -> Scenario {
     let truth_model = body.model(FreeParameters::new(true, true, false));
     let scales = TimeScales::builtin();
     let list = stations();
-    let sites: Vec<ObserverPosition> = STATIONS
+    let sites: Vec<GeodeticSite> = STATIONS
         .iter()
         .map(|(code, _)| {
             let s = list.get(code).expect("station in config/stations.toml");
-            ObserverPosition::Geodetic(
-                GeodeticSite::new(s.longitude_deg, s.latitude_deg, s.height_m).expect("site"),
-            )
+            GeodeticSite::new(s.longitude_deg, s.latitude_deg, s.height_m).expect("site")
         })
         .collect();
     let (y, m, d) = FIRST_NIGHT;
@@ -135,15 +133,13 @@ fn scenario(eph: &dyn Ephemeris) -> Scenario {
             if weather.next() < 0.0 {
                 continue;
             }
-            let ObserverPosition::Geodetic(g) = site else {
-                unreachable!()
-            };
             // Local midnight, then half-hour slots from 18 h to 6 h local.
-            let midnight_s = 86_400.0 - g.east_longitude_deg() / 15.0 * 3600.0;
+            let midnight_s = 86_400.0 - site.east_longitude_deg() / 15.0 * 3600.0;
+            let position = ObserverPosition::Geodetic(*site);
             for slot in -12..=12 {
                 let t = instant(mjd, midnight_s + slot as f64 * 1800.0);
-                let zenith = geocentric_state(site, &t).position_km;
-                let at = ObserverAt::of(&shell(t, site.clone(), STATIONS[station]), eph).unwrap();
+                let zenith = geocentric_state(&position, &t).position_km;
+                let at = ObserverAt::of(&shell(t, position, STATIONS[station]), eph).unwrap();
                 let sun = eph.state(Body::Sun, t.tdb()).unwrap().position_au;
                 let comet = truth.state(t.tdb()).unwrap().position_au + sun;
                 let sun_alt = altitude_deg(&zenith, &(sun - at.state.position_au));
@@ -179,7 +175,11 @@ fn scenario(eph: &dyn Ephemeris) -> Scenario {
                 utc.mjd(),
                 utc.seconds_of_day() + k as f64 * TRACKLET_SPACING_S,
             );
-            let mut o = shell(t, sites[c.station].clone(), STATIONS[c.station]);
+            let mut o = shell(
+                t,
+                ObserverPosition::Geodetic(sites[c.station]),
+                STATIONS[c.station],
+            );
             let at = ObserverAt::of(&o, eph).expect("observer");
             let p = predict(&truth, eph, &at, false).expect("prediction");
             let sigma = STATIONS[c.station].1 / ARCSEC_PER_RAD;
