@@ -38,7 +38,8 @@ use perihelix::fit::ladder::{fit_ladder, Ladder, LadderSettings};
 use perihelix::fit::lsq::{fit_orbit_from, FitProblem, FitSettings};
 use perihelix::fit::observe::{predict, AstrometricObservation, ObserverAt, ARCSEC_PER_RAD};
 
-use common::{de421, load, stations, Gaussian};
+use common::{de421, load, stations};
+use perihelix::fit::sampling::Gaussian;
 
 const OBSERVATIONS: usize = 1000;
 const PER_TRACKLET: usize = 4;
@@ -130,7 +131,7 @@ fn scenario(eph: &dyn Ephemeris) -> Scenario {
         }
         for (station, site) in sites.iter().enumerate() {
             // Half the nights clear (the sign of a standard normal deviate).
-            if weather.next() < 0.0 {
+            if weather.next_normal() < 0.0 {
                 continue;
             }
             // Local midnight, then half-hour slots from 18 h to 6 h local.
@@ -159,7 +160,7 @@ fn scenario(eph: &dyn Ephemeris) -> Scenario {
     // Keep the first and the last, and a seeded choice of the rest.
     let wanted = OBSERVATIONS / PER_TRACKLET;
     let mut order: Vec<(f64, usize)> = (1..candidates.len() - 1)
-        .map(|i| (weather.next(), i))
+        .map(|i| (weather.next_normal(), i))
         .collect();
     order.sort_by(|a, b| a.0.total_cmp(&b.0));
     let mut kept: Vec<usize> = vec![0, candidates.len() - 1];
@@ -183,8 +184,8 @@ fn scenario(eph: &dyn Ephemeris) -> Scenario {
             let at = ObserverAt::of(&o, eph).expect("observer");
             let p = predict(&truth, eph, &at, false).expect("prediction");
             let sigma = STATIONS[c.station].1 / ARCSEC_PER_RAD;
-            o.ra_rad = p.ra_rad + noise.next() * sigma / p.dec_rad.cos();
-            o.dec_rad = p.dec_rad + noise.next() * sigma;
+            o.ra_rad = p.ra_rad + noise.next_normal() * sigma / p.dec_rad.cos();
+            o.dec_rad = p.dec_rad + noise.next_normal() * sigma;
             observations.push(o);
         }
     }
