@@ -7,7 +7,7 @@
 //! - [`catalog_bias`]: the user's star-catalogue bias table, if any.
 //! - [`brightness`]: the brightness laws at the fitted orbit's geometry.
 //! - [`settings`]: the configuration's fit section to the fitter's settings.
-//! - [`sources`]: the ephemeris the configuration names, sized to an arc.
+//! - [`sources`]: the ephemeris the configuration names.
 //! - [`document`]: a solution as the JSON document the commands and the API
 //!   return.
 //! - [`report`]: the same solution as text for a person.
