@@ -306,6 +306,13 @@ pub fn fit_ladder(
         if Some(i) == reference {
             continue;
         }
+        // A model that converged on exactly this set already has the fit a
+        // refit would only repeat.
+        if let Ok(f) = &models[i].fit {
+            if f.termination == Termination::Converged && used_of(f) == used {
+                continue;
+            }
+        }
         let (state, a) = match &models[i].fit {
             Ok(f) => (f.state, nongrav_values(f)),
             Err(_) => match &models[parent_of(&models, i)].fit {
