@@ -442,9 +442,11 @@ fn predict(
         .into_iter()
         .map(|time| PredictionPoint { time, observer })
         .collect();
-    // The fit's own integrator settings (the defaults) carry the orbit on.
+    // The fit's own integrator settings carry the orbit on.
+    let fit_settings = perihelix::solve::settings::solve_settings(&cfg.fit, &cfg.stations)?;
     let settings = PredictSettings {
         method: options.method,
+        propagation: fit_settings.ladder.fit.propagation,
         // Magnitudes from the brightness law the observations support.
         magnitude: solved.brightness.as_ref().and_then(|b| b.law),
         ..PredictSettings::default()
