@@ -321,15 +321,7 @@ fn fit(
     options: &FitOptions,
 ) -> Result<ExitCode> {
     let cfg = configuration(config, stations)?;
-    let outcome = perihelix::ingest::ingest_files(files, &cfg.stations, &cfg.links);
-    for r in &outcome.summary.rejected {
-        eprintln!("rejected: {r}");
-    }
-    let object = pick_object(&outcome.objects, options.object.as_deref())?;
-    let name = object
-        .designations
-        .first()
-        .map_or_else(|| object.id.to_string(), ToString::to_string);
+    let (name, object) = read_object(files, &cfg, options.object.as_deref())?;
     let epoch = options
         .epoch
         .as_deref()
@@ -405,15 +397,7 @@ fn predict(
         anyhow::anyhow!("{option}: {e}")
     })?;
 
-    let outcome = perihelix::ingest::ingest_files(files, &cfg.stations, &cfg.links);
-    for r in &outcome.summary.rejected {
-        eprintln!("rejected: {r}");
-    }
-    let object = pick_object(&outcome.objects, options.object.as_deref())?;
-    let name = object
-        .designations
-        .first()
-        .map_or_else(|| object.id.to_string(), ToString::to_string);
+    let (name, object) = read_object(files, &cfg, options.object.as_deref())?;
     let solved = perihelix::solve::solve_records(&cfg, &name, &object.observations, None, false)?;
     for r in &solved.refused {
         eprintln!("not used: {r}");
@@ -466,6 +450,25 @@ fn predict(
         print!("{}", doc.text());
     }
     Ok(ExitCode::SUCCESS)
+}
+
+/// Reads the files (reporting rejected lines on stderr, never fatal) and
+/// picks the object to fit, with the name it is reported under.
+fn read_object(
+    files: &[PathBuf],
+    cfg: &Config,
+    wanted: Option<&str>,
+) -> Result<(String, ObjectObservations)> {
+    let outcome = perihelix::ingest::ingest_files(files, &cfg.stations, &cfg.links);
+    for r in &outcome.summary.rejected {
+        eprintln!("rejected: {r}");
+    }
+    let object = pick_object(&outcome.objects, wanted)?.clone();
+    let name = object
+        .designations
+        .first()
+        .map_or_else(|| object.id.to_string(), ToString::to_string);
+    Ok((name, object))
 }
 
 /// The one object to fit: the only one in the files, or the one named.

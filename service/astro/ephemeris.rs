@@ -56,6 +56,20 @@ pub enum Body {
 }
 
 impl Body {
+    /// Every body, the Sun first.
+    pub const ALL: [Body; 10] = [
+        Body::Sun,
+        Body::Mercury,
+        Body::Venus,
+        Body::Earth,
+        Body::Moon,
+        Body::Mars,
+        Body::Jupiter,
+        Body::Saturn,
+        Body::Uranus,
+        Body::Neptune,
+    ];
+
     /// The bodies whose attraction perturbs a small body, in the order the
     /// force model sums them.
     pub const PERTURBERS: [Body; 9] = [

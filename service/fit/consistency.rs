@@ -245,6 +245,17 @@ mod tests {
         fit_orbit(&problem, epoch, &state, &FitSettings::default()).unwrap()
     }
 
+    fn against(fit: &OrbitFit, batch: &[AstrometricObservation]) -> Consistency {
+        batch_consistency(
+            &WobblingSun,
+            fit,
+            batch,
+            &WeightSettings::default(),
+            &PropagationSettings::default(),
+        )
+        .unwrap()
+    }
+
     /// Noise-free data of the same orbit: every residual is round-off, so
     /// the batch chi^2 is near zero and the p-value near one.
     #[test]
@@ -252,14 +263,7 @@ mod tests {
         let model = gravity();
         let fit = fitted(&observations(&model, -20.0, 20, 2.0));
         let later = observations(&model, 30.0, 6, 1.0);
-        let c = batch_consistency(
-            &WobblingSun,
-            &fit,
-            &later,
-            &WeightSettings::default(),
-            &PropagationSettings::default(),
-        )
-        .unwrap();
+        let c = against(&fit, &later);
         assert_eq!(c.dof, 12);
         assert!(c.chi2 < 1e-3, "chi2 {}", c.chi2);
         assert!(c.p_value() > 0.999);
@@ -275,14 +279,7 @@ mod tests {
         let fit = fitted(&observations(&model, -20.0, 20, 2.0));
         let mut later = observations(&model, 30.0, 6, 1.0);
         later[3].dec_rad += 10.0 / crate::fit::observe::ARCSEC_PER_RAD;
-        let c = batch_consistency(
-            &WobblingSun,
-            &fit,
-            &later,
-            &WeightSettings::default(),
-            &PropagationSettings::default(),
-        )
-        .unwrap();
+        let c = against(&fit, &later);
         let worst = c
             .residuals
             .iter()
@@ -301,14 +298,7 @@ mod tests {
         let model = gravity();
         let fit = fitted(&observations(&model, -4.0, 8, 1.0));
         let later = observations(&model, 200.0, 2, 1.0);
-        let c = batch_consistency(
-            &WobblingSun,
-            &fit,
-            &later,
-            &WeightSettings::default(),
-            &PropagationSettings::default(),
-        )
-        .unwrap();
+        let c = against(&fit, &later);
         let p = c.residuals[0].prediction_covariance_arcsec2;
         // An 8-day arc extrapolated 200 days: far above the 0.25 arcsec^2
         // of one measurement.

@@ -5,19 +5,6 @@ use perihelix::astro::embedded::{AnalyticTheories, EmbeddedEphemeris};
 use perihelix::astro::ephemeris::{Body, Ephemeris};
 use perihelix::astro::time::Epoch;
 
-const ALL_BODIES: [Body; 10] = [
-    Body::Sun,
-    Body::Mercury,
-    Body::Venus,
-    Body::Earth,
-    Body::Moon,
-    Body::Mars,
-    Body::Jupiter,
-    Body::Saturn,
-    Body::Uranus,
-    Body::Neptune,
-];
-
 fn benches(c: &mut Criterion) {
     let start = Epoch::from_tdb_days_since_j2000(8765.5);
     let end = Epoch::from_tdb_days_since_j2000(9131.5);
@@ -29,7 +16,7 @@ fn benches(c: &mut Criterion) {
         b.iter(|| {
             let eph = EmbeddedEphemeris::new(black_box(start), black_box(end)).unwrap();
             for day in 0..365 {
-                for body in ALL_BODIES {
+                for body in Body::ALL {
                     black_box(eph.state(body, start.plus_days(day as f64)).unwrap());
                 }
             }
@@ -50,7 +37,7 @@ fn benches(c: &mut Criterion) {
         b.iter(|| {
             day = (day + 0.731) % 365.0;
             let t = start.plus_days(day);
-            for body in ALL_BODIES {
+            for body in Body::ALL {
                 black_box(eph.state(body, t).unwrap());
             }
         })

@@ -36,18 +36,7 @@ const THEORY_START_DAYS: f64 = -36_524.5;
 const THEORY_END_DAYS: f64 = 36_524.5;
 
 /// All bodies, in the order the tables are kept.
-const BODIES: [Body; 10] = [
-    Body::Sun,
-    Body::Mercury,
-    Body::Venus,
-    Body::Earth,
-    Body::Moon,
-    Body::Mars,
-    Body::Jupiter,
-    Body::Saturn,
-    Body::Uranus,
-    Body::Neptune,
-];
+const BODIES: [Body; 10] = Body::ALL;
 
 fn table_index(body: Body) -> usize {
     match body {
