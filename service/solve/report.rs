@@ -184,6 +184,15 @@ pub fn text(doc: &SolutionDocument) -> String {
     out
 }
 
+/// A law parameter: with its sigma when fitted, marked when held fixed.
+fn free_or_fixed(v: &ValueSigma, fixed: bool) -> String {
+    if fixed {
+        format!("{:.2} (fixed)", v.value)
+    } else {
+        format!("{:.2} +/- {:.2}", v.value, v.sigma)
+    }
+}
+
 fn brightness_details(out: &mut String, p: &BrightnessDocument) {
     let _ = writeln!(
         out,
@@ -193,11 +202,7 @@ Brightness ({} magnitudes, at the recommended orbit's geometry):",
     );
     let mark = |law: &str| if p.preferred == Some(law) { "*" } else { " " };
     if let Some(t) = &p.total {
-        let k1 = if t.k1_fixed {
-            format!("{:.2} (fixed)", t.k1.value)
-        } else {
-            format!("{:.2} +/- {:.2}", t.k1.value, t.k1.sigma)
-        };
+        let k1 = free_or_fixed(&t.k1, t.k1_fixed);
         let _ = writeln!(
             out,
             "{} total law  M1 {:.2} +/- {:.2}  K1 {k1}  nrms {:.2}  {} used, {} rejected, {} brighter than the law{}",
@@ -213,11 +218,7 @@ Brightness ({} magnitudes, at the recommended orbit's geometry):",
         );
     }
     if let Some(h) = &p.hg {
-        let g = if h.g_fixed {
-            format!("{:.2} (fixed)", h.g.value)
-        } else {
-            format!("{:.2} +/- {:.2}", h.g.value, h.g.sigma)
-        };
+        let g = free_or_fixed(&h.g, h.g_fixed);
         let _ = writeln!(
             out,
             "{} (H, G) law  H {:.2} +/- {:.2}  G {g}  nrms {:.2}  {} used, {} rejected, {} brighter than the law",
