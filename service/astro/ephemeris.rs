@@ -70,6 +70,22 @@ impl Body {
         Body::Neptune,
     ];
 
+    /// This body's position in [`Body::ALL`]: the slot of per-body tables.
+    pub fn index(self) -> usize {
+        match self {
+            Body::Sun => 0,
+            Body::Mercury => 1,
+            Body::Venus => 2,
+            Body::Earth => 3,
+            Body::Moon => 4,
+            Body::Mars => 5,
+            Body::Jupiter => 6,
+            Body::Saturn => 7,
+            Body::Uranus => 8,
+            Body::Neptune => 9,
+        }
+    }
+
     /// The bodies whose attraction perturbs a small body, in the order the
     /// force model sums them.
     pub const PERTURBERS: [Body; 9] = [

@@ -507,34 +507,7 @@ pub struct SpkEphemeris {
     chains: [Chain; BODY_COUNT],
 }
 
-const BODY_COUNT: usize = 10;
-const ALL_BODIES: [Body; BODY_COUNT] = [
-    Body::Sun,
-    Body::Mercury,
-    Body::Venus,
-    Body::Earth,
-    Body::Moon,
-    Body::Mars,
-    Body::Jupiter,
-    Body::Saturn,
-    Body::Uranus,
-    Body::Neptune,
-];
-
-fn body_slot(body: Body) -> usize {
-    match body {
-        Body::Sun => 0,
-        Body::Mercury => 1,
-        Body::Venus => 2,
-        Body::Earth => 3,
-        Body::Moon => 4,
-        Body::Mars => 5,
-        Body::Jupiter => 6,
-        Body::Saturn => 7,
-        Body::Uranus => 8,
-        Body::Neptune => 9,
-    }
-}
+const BODY_COUNT: usize = Body::ALL.len();
 
 impl SpkEphemeris {
     /// Opens an SPK file and checks that it provides every [`Body`].
@@ -551,8 +524,8 @@ impl SpkEphemeris {
             start_days: 0.0,
             end_days: 0.0,
         }; BODY_COUNT];
-        for body in ALL_BODIES {
-            chains[body_slot(body)] = file.chain_to_barycentre(naif_id(body))?;
+        for body in Body::ALL {
+            chains[body.index()] = file.chain_to_barycentre(naif_id(body))?;
         }
         Ok(Self { file, chains })
     }
@@ -563,7 +536,7 @@ impl SpkEphemeris {
 
     /// First and last epoch at which `body` is available.
     pub fn coverage(&self, body: Body) -> (Epoch, Epoch) {
-        let chain = &self.chains[body_slot(body)];
+        let chain = &self.chains[body.index()];
         (
             Epoch::from_tdb_days_since_j2000(chain.start_days),
             Epoch::from_tdb_days_since_j2000(chain.end_days),
@@ -572,7 +545,7 @@ impl SpkEphemeris {
 
     /// Barycentric state in the file's own units (km, km/day).
     pub fn barycentric_state_km(&self, body: Body, t: Epoch) -> Result<SegmentState, SpkError> {
-        let chain = &self.chains[body_slot(body)];
+        let chain = &self.chains[body.index()];
         let mut sum = SegmentState::zero();
         for &index in &chain.links[..chain.len] {
             let link = self.file.pair_state(index, t)?;
@@ -1457,7 +1430,7 @@ mod tests {
         eprintln!("DE421 chained bodies vs jplephem 2.24 sums: worst {worst_km:.3e} km");
         // Every body is available over the file's span (1899-07-29 to
         // 2053-10-09 for DE421, per jplephem's listing of the segments).
-        for body in ALL_BODIES {
+        for body in Body::ALL {
             let (start, end) = ephemeris.coverage(body);
             assert_eq!(
                 start.tdb_days_since_j2000(),

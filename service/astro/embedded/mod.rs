@@ -35,24 +35,6 @@ use super::time::Epoch;
 const THEORY_START_DAYS: f64 = -36_524.5;
 const THEORY_END_DAYS: f64 = 36_524.5;
 
-/// All bodies, in the order the tables are kept.
-const BODIES: [Body; 10] = Body::ALL;
-
-fn table_index(body: Body) -> usize {
-    match body {
-        Body::Sun => 0,
-        Body::Mercury => 1,
-        Body::Venus => 2,
-        Body::Earth => 3,
-        Body::Moon => 4,
-        Body::Mars => 5,
-        Body::Jupiter => 6,
-        Body::Saturn => 7,
-        Body::Uranus => 8,
-        Body::Neptune => 9,
-    }
-}
-
 /// Segment length (days) and series degree per body. The shortest periods
 /// in the barycentric motion set them: the Moon's 27-day orbit (also seen
 /// in the Earth's barycentric motion as a 4700 km wobble), Mercury's
@@ -175,7 +157,7 @@ impl EmbeddedEphemeris {
                 end: end.to_string(),
             });
         }
-        let tables = BODIES
+        let tables = Body::ALL
             .iter()
             .map(|&body| {
                 let (segment_days, degree) = segment_plan(body);
@@ -238,7 +220,7 @@ impl Ephemeris for EmbeddedEphemeris {
                 .position_au(body, Epoch::from_tdb_days_since_j2000(day));
             [p.x, p.y, p.z]
         };
-        let (p, v) = self.tables[table_index(body)]
+        let (p, v) = self.tables[body.index()]
             .evaluate(t.tdb_days_since_j2000(), sample)
             .ok_or_else(out_of_range)?;
         Ok(StateVector::new(Vector3::from(p), Vector3::from(v)))

@@ -46,7 +46,7 @@ fn tables_reproduce_the_series() {
     let (start, end) = year_2024();
     let ephemeris = EmbeddedEphemeris::new(start, end).unwrap();
     let theories = AnalyticTheories::new();
-    for body in BODIES {
+    for body in Body::ALL {
         let mut worst_km: f64 = 0.0;
         // 0.37-day steps fall between nodes and on segment boundaries alike.
         let mut day = start.tdb_days_since_j2000();
@@ -137,7 +137,7 @@ struct ReferenceState {
 }
 
 fn body_named(name: &str) -> Body {
-    BODIES
+    Body::ALL
         .into_iter()
         .find(|b| format!("{b:?}") == name)
         .unwrap_or_else(|| panic!("unknown body {name} in the fixture"))
@@ -200,13 +200,13 @@ fn agrees_with_de421_1990_to_2050() {
             let got = ephemeris.state(r.body, t).unwrap();
             let dp = (got.position_au - r.state.position_au).norm();
             let dv = (got.velocity_au_per_day - r.state.velocity_au_per_day).norm();
-            let i = table_index(r.body);
+            let i = r.body.index();
             worst_position_km[i] = worst_position_km[i].max(dp * KM_PER_AU);
             worst_velocity_mm_s[i] = worst_velocity_mm_s[i].max(dv * MM_PER_S_PER_AU_PER_DAY);
         }
     }
-    for body in BODIES {
-        let i = table_index(body);
+    for body in Body::ALL {
+        let i = body.index();
         println!(
             "{:>20}: worst position {:10.3} km ({:.2e} au), velocity {:10.3} mm/s",
             body.name(),
@@ -215,8 +215,8 @@ fn agrees_with_de421_1990_to_2050() {
             worst_velocity_mm_s[i]
         );
     }
-    for body in BODIES {
-        let worst_au = worst_position_km[table_index(body)] / KM_PER_AU;
+    for body in Body::ALL {
+        let worst_au = worst_position_km[body.index()] / KM_PER_AU;
         assert!(
             worst_au < position_tolerance_au(body),
             "{body:?}: {worst_au:.3e} au"
