@@ -181,54 +181,8 @@ mod tests {
     use super::*;
     use crate::astro::ephemeris::Body;
     use crate::astro::forces::ForceModel;
-    use crate::astro::time::Epoch;
     use crate::fit::lsq::{fit_orbit, FitProblem, FitSettings};
-    use crate::fit::test_support::{belt_state, shell, WobblingSun};
-
-    /// Observations of the belt orbit every `step` days from `from`, from
-    /// two invented sites, with the places the model itself gives.
-    fn observations(
-        model: &ForceModel,
-        from: f64,
-        count: usize,
-        step: f64,
-    ) -> Vec<AstrometricObservation> {
-        let (epoch, state) = belt_state();
-        let eph = WobblingSun;
-        let shells: Vec<_> = (0..count)
-            .map(|i| {
-                let t = Epoch::from_tdb_days_since_j2000(9000.0 + from + step * i as f64);
-                shell(
-                    t,
-                    if i % 2 == 0 { "X01" } else { "X02" },
-                    40.0 * (i % 2) as f64,
-                )
-            })
-            .collect();
-        let (first, last) = (shells[0].time.tdb(), shells[count - 1].time.tdb());
-        let start = if first < epoch { first } else { epoch }.plus_days(-1.0);
-        let end = if last > epoch { last } else { epoch }.plus_days(1.0);
-        let trajectory = Trajectory::integrate(
-            &eph,
-            model,
-            epoch,
-            &state,
-            start,
-            end,
-            &PropagationSettings::default(),
-        )
-        .unwrap();
-        shells
-            .into_iter()
-            .map(|mut o| {
-                let at = ObserverAt::of(&o, &eph).unwrap();
-                let p = predict(&trajectory, &eph, &at, false).unwrap();
-                o.ra_rad = p.ra_rad;
-                o.dec_rad = p.dec_rad;
-                o
-            })
-            .collect()
-    }
+    use crate::fit::test_support::{belt_observations as observations, belt_state, WobblingSun};
 
     fn gravity() -> ForceModel {
         ForceModel::new(&[Body::Jupiter], false, None).unwrap()

@@ -18,9 +18,17 @@
 //!    the threshold and its corrected test against its parent does too; the
 //!    recommended model is the lowest BIC = chi^2 + k ln N among gravity and
 //!    the models whose terms are all significant.
-//! 5. The headline "non-gravitational significance" is the largest
+//! 5. A model that did not converge on the common set is refitted once
+//!    more from the states of the converged models nearest to it (fewest
+//!    terms differing, then lowest chi^2), with the A_i it shares with
+//!    them: gravity from the best one-term fits with their A_i set to
+//!    zero. No test is ever computed against a model that did not
+//!    converge.
+//! 6. The headline "non-gravitational significance" is the largest
 //!    corrected significance of any non-gravitational model against gravity
-//!    alone: how strongly the data refuse gravity alone.
+//!    alone: how strongly the data refuse gravity alone. When gravity alone
+//!    or every non-gravitational model failed, it is unknown, with the
+//!    reason, never zero.
 
 use crate::astro::ephemeris::{Ephemeris, StateVector};
 use crate::astro::forces::{DistanceLaw, ForceModel, FreeParameters, NonGravModel};
@@ -119,6 +127,10 @@ pub struct ModelFit {
     pub test: Option<ModelTest>,
     /// Against gravity alone.
     pub test_against_gravity: Option<ModelTest>,
+    /// Indices of the converged models whose states the fit was restarted
+    /// from, in order, after it failed from its own start (see the module
+    /// notes); empty when it was not restarted.
+    pub restarted_from: Vec<usize>,
     /// |A_i| / sigma(A_i) per free term, in component order.
     pub term_sigmas: Vec<(usize, f64)>,
     /// Every term and the parent test reach the threshold.
@@ -151,6 +163,41 @@ impl ModelFit {
             .ok()
             .filter(|f| f.termination == Termination::Converged)
     }
+
+    /// Why the fit stopped: "converged" or the reason it failed.
+    pub fn termination_text(&self) -> String {
+        match &self.fit {
+            Ok(f) => f.termination.to_string(),
+            Err(reason) => reason.clone(),
+        }
+    }
+}
+
+/// How strongly the data refuse gravity alone, or why that cannot be said.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Significance {
+    /// The largest Bonferroni-corrected significance of any
+    /// non-gravitational model against gravity alone, Gaussian sigma.
+    Sigma(f64),
+    /// The comparison could not be made.
+    Unknown { reason: String },
+}
+
+impl Significance {
+    /// The figure, when there is one: unknown is never read as zero.
+    pub fn sigma(&self) -> Option<f64> {
+        match self {
+            Self::Sigma(s) => Some(*s),
+            Self::Unknown { .. } => None,
+        }
+    }
+
+    pub fn unknown_reason(&self) -> Option<&str> {
+        match self {
+            Self::Sigma(_) => None,
+            Self::Unknown { reason } => Some(reason),
+        }
+    }
 }
 
 #[derive(Debug, Clone)]
@@ -160,9 +207,8 @@ pub struct Ladder {
     /// Index of the recommended model (gravity when nothing else is
     /// justified); None when not even gravity converged.
     pub recommended: Option<usize>,
-    /// The headline significance (see the module notes); 0 when no
-    /// non-gravitational model converged.
-    pub ng_significance_sigma: f64,
+    /// The headline significance (see the module notes).
+    pub ng_significance: Significance,
     /// Non-gravitational models tried (the Bonferroni factor).
     pub alternatives: usize,
     /// The common used set, one flag per observation.
@@ -206,6 +252,29 @@ fn parent_of(models: &[ModelFit], index: usize) -> usize {
     best.map_or(0, |(j, _, _)| j)
 }
 
+/// Where a model's fit starts: a state at the fit epoch and the A_i.
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct Start {
+    pub state: StateVector,
+    pub a: [f64; 3],
+}
+
+impl Start {
+    fn of(f: &OrbitFit) -> Self {
+        Self {
+            state: f.state,
+            a: nongrav_values(f),
+        }
+    }
+}
+
+/// Fits one model of the ladder from a start on a used set.
+pub(crate) type ModelFitter<'a> =
+    dyn Fn(&ModelFit, &Start, &[bool], &FitSettings) -> Result<OrbitFit, FitError> + 'a;
+
+/// Restarts tried for a model that failed on the common set.
+const RESTARTS: usize = 2;
+
 /// Fits the whole ladder from a starting state at `epoch`.
 pub fn fit_ladder(
     ephemeris: &dyn Ephemeris,
@@ -216,27 +285,6 @@ pub fn fit_ladder(
     settings: &LadderSettings,
 ) -> Result<Ladder, FitError> {
     let gravity = gravity.without_nongrav();
-    let mut models = vec![ModelFit {
-        free: FreeParameters::new(false, false, false),
-        law: None,
-        fit: Err("not fitted".into()),
-        test: None,
-        test_against_gravity: None,
-        term_sigmas: Vec::new(),
-        significant: true,
-        bic: None,
-        recommended: false,
-    }];
-    for law in &settings.laws {
-        for free in settings.rungs.iter().filter(|f| f.count() > 0) {
-            models.push(ModelFit {
-                free: *free,
-                law: Some(*law),
-                ..models[0].clone()
-            });
-        }
-    }
-    let all = vec![true; observations.len()];
     // The observer places are the same for every model: computed once
     // (the Earth's orientation at each observation is costly).
     let observers = observer_places(&FitProblem {
@@ -249,38 +297,66 @@ pub fn fit_ladder(
         observations,
         observers: &observers,
     };
+    let fit_one = |model: &ModelFit, from: &Start, used: &[bool], fit: &FitSettings| {
+        fit_model(&data, &gravity, model, epoch, from, used, fit)
+    };
+    run_ladder(&fit_one, start, observations.len(), settings)
+}
+
+/// The ladder's models in order, none fitted yet.
+fn shells(settings: &LadderSettings) -> Vec<ModelFit> {
+    let gravity = ModelFit {
+        free: FreeParameters::new(false, false, false),
+        law: None,
+        fit: Err("not fitted".into()),
+        test: None,
+        test_against_gravity: None,
+        restarted_from: Vec::new(),
+        term_sigmas: Vec::new(),
+        significant: true,
+        bic: None,
+        recommended: false,
+    };
+    let mut models = vec![gravity.clone()];
+    for law in &settings.laws {
+        for free in settings.rungs.iter().filter(|f| f.count() > 0) {
+            models.push(ModelFit {
+                free: *free,
+                law: Some(*law),
+                ..gravity.clone()
+            });
+        }
+    }
+    models
+}
+
+/// The ladder with each model fitted by `fit_one` (the real fit, or in
+/// tests one that fails on purpose).
+pub(crate) fn run_ladder(
+    fit_one: &ModelFitter,
+    start: &StateVector,
+    observation_count: usize,
+    settings: &LadderSettings,
+) -> Result<Ladder, FitError> {
+    let mut models = shells(settings);
+    let all = vec![true; observation_count];
+    let origin = Start {
+        state: *start,
+        a: [0.0; 3],
+    };
 
     // Pass 1: each model with rejection, warm-started from its parent.
     // Gravity failing outright (too few observations, a bad start) ends
     // the ladder: every other model starts from it.
-    let first = fit_model(
-        &data,
-        &gravity,
-        &models[0],
-        epoch,
-        start,
-        None,
-        &all,
-        &settings.fit,
-    )?;
+    let first = fit_one(&models[0], &origin, &all, &settings.fit)?;
     models[0].fit = Ok(first);
     for i in 1..models.len() {
         let parent = parent_of(&models, i);
-        let (state, a, used) = match &models[parent].fit {
-            Ok(p) => (p.state, nongrav_values(p), used_of(p)),
-            Err(_) => (*start, [0.0; 3], all.clone()),
+        let (from, used) = match &models[parent].fit {
+            Ok(p) => (Start::of(p), used_of(p)),
+            Err(_) => (origin, all.clone()),
         };
-        models[i].fit = fit_model(
-            &data,
-            &gravity,
-            &models[i],
-            epoch,
-            &state,
-            Some(a),
-            &used,
-            &settings.fit,
-        )
-        .map_err(|e| e.to_string());
+        models[i].fit = fit_one(&models[i], &from, &used, &settings.fit).map_err(|e| e.to_string());
     }
 
     // Pass 2: the richest converged model's used set for everyone.
@@ -289,10 +365,9 @@ pub fn fit_ladder(
         .enumerate()
         .filter(|(_, m)| m.converged())
         .max_by(|(_, a), (_, b)| {
-            let chi = |m: &ModelFit| m.fit.as_ref().map_or(f64::INFINITY, |f| f.chi2);
             a.parameter_count()
                 .cmp(&b.parameter_count())
-                .then(chi(b).total_cmp(&chi(a)))
+                .then(chi2_or_inf(b).total_cmp(&chi2_or_inf(a)))
         })
         .map(|(i, _)| i);
     let used = reference
@@ -313,42 +388,124 @@ pub fn fit_ladder(
                 continue;
             }
         }
-        let (state, a) = match &models[i].fit {
-            Ok(f) => (f.state, nongrav_values(f)),
+        let from = match &models[i].fit {
+            Ok(f) => Start::of(f),
             Err(_) => match &models[parent_of(&models, i)].fit {
-                Ok(p) => (p.state, nongrav_values(p)),
-                Err(_) => (*start, [0.0; 3]),
+                Ok(p) => Start::of(p),
+                Err(_) => origin,
             },
         };
-        models[i].fit = fit_model(
-            &data,
-            &gravity,
-            &models[i],
-            epoch,
-            &state,
-            Some(a),
-            &used,
-            &fixed,
-        )
-        .map_err(|e| e.to_string());
+        models[i].fit = fit_one(&models[i], &from, &used, &fixed).map_err(|e| e.to_string());
+    }
+
+    // Pass 3: what failed starts again from its converged neighbours.
+    for i in 0..models.len() {
+        if models[i].converged() {
+            continue;
+        }
+        for j in nearest_converged(&models, i).into_iter().take(RESTARTS) {
+            let from = match &models[j].fit {
+                Ok(f) => Start::of(f),
+                Err(_) => continue,
+            };
+            let mut a = [0.0; 3];
+            for c in models[i].free.indices() {
+                a[c] = from.a[c];
+            }
+            let from = Start { a, ..from };
+            models[i].fit = fit_one(&models[i], &from, &used, &fixed).map_err(|e| e.to_string());
+            models[i].restarted_from.push(j);
+            if models[i].converged() {
+                break;
+            }
+        }
     }
 
     let alternatives = models.len() - 1;
     decide(&mut models, &used, alternatives, settings);
     let recommended = models.iter().position(|m| m.recommended);
-    let ng_significance_sigma = models
-        .iter()
-        .filter_map(|m| m.test_against_gravity.as_ref())
-        .map(|t| t.sigma)
-        .fold(0.0, f64::max);
+    let ng_significance = significance(&models);
     Ok(Ladder {
         models,
         recommended,
-        ng_significance_sigma,
+        ng_significance,
         alternatives,
         used,
         reference_model: reference,
     })
+}
+
+fn chi2_or_inf(m: &ModelFit) -> f64 {
+    m.fit.as_ref().map_or(f64::INFINITY, |f| f.chi2)
+}
+
+/// The converged models other than `index`, nearest first: fewest terms
+/// differing, then the same law, then the lowest chi^2.
+fn nearest_converged(models: &[ModelFit], index: usize) -> Vec<usize> {
+    let me = &models[index];
+    let mut near: Vec<usize> = (0..models.len())
+        .filter(|j| *j != index && models[*j].converged())
+        .collect();
+    let key = |j: usize| {
+        let m = &models[j];
+        let differing = (0..3)
+            .filter(|c| m.free.is_free(*c) != me.free.is_free(*c))
+            .count();
+        let other_law = usize::from(me.law.is_some() && m.law.is_some() && m.law != me.law);
+        (differing, other_law)
+    };
+    near.sort_by(|a, b| {
+        key(*a)
+            .cmp(&key(*b))
+            .then(chi2_or_inf(&models[*a]).total_cmp(&chi2_or_inf(&models[*b])))
+    });
+    near
+}
+
+/// "A1 water-ice, A2 water-ice": the names of the models at `indices`.
+pub fn names(models: &[ModelFit], indices: &[usize]) -> String {
+    indices
+        .iter()
+        .map(|j| models[*j].name())
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// The headline significance, or why there is none.
+fn significance(models: &[ModelFit]) -> Significance {
+    let gravity = &models[0];
+    if !gravity.converged() {
+        let restarted = if gravity.restarted_from.is_empty() {
+            String::new()
+        } else {
+            format!(
+                " (also when restarted from the {} fits)",
+                names(models, &gravity.restarted_from)
+            )
+        };
+        return Significance::Unknown {
+            reason: format!(
+                "gravity alone did not converge{restarted}: {}",
+                gravity.termination_text()
+            ),
+        };
+    }
+    if models.len() == 1 {
+        return Significance::Unknown {
+            reason: "no non-gravitational model is configured".into(),
+        };
+    }
+    models
+        .iter()
+        .filter_map(|m| m.test_against_gravity.as_ref())
+        .map(|t| t.sigma)
+        .reduce(f64::max)
+        .map_or_else(
+            || Significance::Unknown {
+                reason: "no non-gravitational model converged".into(),
+            },
+            Significance::Sigma,
+        )
 }
 
 fn used_of(f: &OrbitFit) -> Vec<bool> {
@@ -370,14 +527,12 @@ struct Data<'a> {
     observers: &'a [ObserverAt],
 }
 
-#[allow(clippy::too_many_arguments)]
 fn fit_model(
     data: &Data,
     gravity: &ForceModel,
     model: &ModelFit,
     epoch: Epoch,
-    start: &StateVector,
-    start_a: Option<[f64; 3]>,
+    start: &Start,
     used: &[bool],
     settings: &FitSettings,
 ) -> Result<OrbitFit, FitError> {
@@ -385,10 +540,8 @@ fn fit_model(
         None => gravity.clone(),
         Some(law) => {
             let mut a = [0.0; 3];
-            if let Some(start_a) = start_a {
-                for i in model.free.indices() {
-                    a[i] = start_a[i];
-                }
+            for i in model.free.indices() {
+                a[i] = start.a[i];
             }
             gravity
                 .clone()
@@ -400,7 +553,14 @@ fn fit_model(
         model: &force,
         observations: data.observations,
     };
-    fit_orbit_observed(&problem, data.observers, epoch, start, settings, used)
+    fit_orbit_observed(
+        &problem,
+        data.observers,
+        epoch,
+        &start.state,
+        settings,
+        used,
+    )
 }
 
 /// Likelihood-ratio test of `rich` against `simple`.
@@ -519,6 +679,7 @@ mod tests {
             fit: Err("not fitted".into()),
             test: None,
             test_against_gravity: None,
+            restarted_from: Vec::new(),
             term_sigmas: Vec::new(),
             significant: false,
             bic: None,
@@ -547,5 +708,49 @@ mod tests {
         assert_eq!(parent_of(&models, 4), 3);
         // The other law's models never serve as parents.
         assert_eq!(parent_of(&models, 6), 5);
+    }
+
+    #[test]
+    fn unknown_when_gravity_alone_never_converges() {
+        let (_, l) = crate::fit::test_support::outgassing_ladder(usize::MAX);
+        let gravity = &l.models[0];
+        assert!(!gravity.converged());
+        // It was restarted from its converged neighbours and failed again.
+        assert_eq!(gravity.restarted_from.len(), RESTARTS);
+        let reason = l.ng_significance.unknown_reason().expect("unknown");
+        assert!(
+            reason.contains("gravity alone did not converge"),
+            "{reason}"
+        );
+        assert_eq!(l.ng_significance.sigma(), None);
+        // Nothing was tested against the failed fit.
+        for m in &l.models {
+            assert!(m.test_against_gravity.is_none(), "{}", m.name());
+            if let Some(t) = &m.test {
+                assert!(l.models[t.against].converged());
+            }
+        }
+        // The non-gravitational models themselves are fine.
+        assert!(l.models[1..].iter().any(ModelFit::converged));
+    }
+
+    #[test]
+    fn a_failed_gravity_fit_is_restarted_from_its_neighbour() {
+        // Passes 1 and 2 fail; the restart from the nearest converged
+        // model (A1 with A1 set to zero) converges.
+        let (_, l) = crate::fit::test_support::outgassing_ladder(2);
+        let gravity = &l.models[0];
+        assert!(gravity.converged(), "{}", gravity.termination_text());
+        // One restart sufficed, from the best one-term fit: A1, whose
+        // chi^2 is the lowest of the two (the truth has A1 alone).
+        let [from] = gravity.restarted_from[..] else {
+            panic!("restarted {:?}", gravity.restarted_from)
+        };
+        assert_eq!(l.models[from].name(), "A1 inverse-square");
+        let sigma = l.ng_significance.sigma().expect("a figure");
+        // A1 = 3e-6 au/day^2 over 240 days is far beyond noise of 0.5".
+        assert!(sigma > 5.0, "{sigma}");
+        let rec = l.recommended_model().expect("recommended");
+        assert!(rec.free.is_free(0), "{}", rec.name());
     }
 }

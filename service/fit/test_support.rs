@@ -7,7 +7,11 @@ use crate::astro::ephemeris::{Body, Ephemeris, EphemerisError, StateVector};
 use crate::astro::observer::{GeodeticSite, ObserverPosition};
 use crate::astro::time::{Epoch, TimeScales};
 
-use super::observe::AstrometricObservation;
+use crate::astro::forces::ForceModel;
+use crate::astro::propagation::{PropagationSettings, Trajectory};
+
+use super::observe::{predict, AstrometricObservation, ObserverAt};
+use super::sampling::Gaussian;
 
 /// Planets on circles about a Sun that itself circles the barycentre (so
 /// that the heliocentric-to-barycentric step of the model is exercised).
@@ -83,4 +87,130 @@ pub(crate) fn belt_state() -> (Epoch, StateVector) {
         epoch,
         StateVector::new(dir * r + Vector3::new(0.1, -0.2, 0.15), velocity),
     )
+}
+
+/// Observations of the [`belt_state`] orbit under `model`, every `step`
+/// days from `from` days after its epoch, alternately from two invented
+/// sites, with the places the model itself gives.
+pub(crate) fn belt_observations(
+    model: &ForceModel,
+    from: f64,
+    count: usize,
+    step: f64,
+) -> Vec<AstrometricObservation> {
+    let (epoch, state) = belt_state();
+    let eph = WobblingSun;
+    let shells: Vec<_> = (0..count)
+        .map(|i| {
+            let t = epoch.plus_days(from + step * i as f64);
+            shell(
+                t,
+                if i % 2 == 0 { "X01" } else { "X02" },
+                40.0 * (i % 2) as f64,
+            )
+        })
+        .collect();
+    let (first, last) = (shells[0].time.tdb(), shells[count - 1].time.tdb());
+    let start = if first < epoch { first } else { epoch }.plus_days(-1.0);
+    let end = if last > epoch { last } else { epoch }.plus_days(1.0);
+    let trajectory = Trajectory::integrate(
+        &eph,
+        model,
+        epoch,
+        &state,
+        start,
+        end,
+        &PropagationSettings::default(),
+    )
+    .unwrap();
+    shells
+        .into_iter()
+        .map(|mut o| {
+            let at = ObserverAt::of(&o, &eph).unwrap();
+            let p = predict(&trajectory, &eph, &at, false).unwrap();
+            o.ra_rad = p.ra_rad;
+            o.dec_rad = p.dec_rad;
+            o
+        })
+        .collect()
+}
+
+/// Adds seeded Gaussian noise of each observation's own sigma (0.5 arcsec
+/// from [`shell`]) to its RA cos Dec and Dec.
+pub(crate) fn add_noise(observations: &mut [AstrometricObservation], seed: u64) {
+    let mut rng = Gaussian::new(seed);
+    for o in observations {
+        let (sra, sdec) = (
+            o.sigma_ra_arcsec.unwrap_or(1.0),
+            o.sigma_dec_arcsec.unwrap_or(1.0),
+        );
+        o.ra_rad += rng.next_normal() * sra / super::observe::ARCSEC_PER_RAD / o.dec_rad.cos();
+        o.dec_rad += rng.next_normal() * sdec / super::observe::ARCSEC_PER_RAD;
+    }
+}
+
+/// A body pushed by A1 = 3e-6 au/day^2 under the inverse-square law,
+/// observed for 240 days with seeded 0.5 arcsec noise, and its ladder
+/// (inverse-square rungs only) with the first `gravity_failures` fits of
+/// gravity alone made to fail: no iteration allowed and no stall accepted,
+/// so each ends at the iteration limit, through the real fitter.
+pub(crate) fn outgassing_ladder(
+    gravity_failures: usize,
+) -> (Vec<AstrometricObservation>, super::ladder::Ladder) {
+    use super::ladder::{run_ladder, LadderSettings, ModelFit, Start};
+    use super::lsq::{fit_orbit_observed, observer_places, FitProblem, FitSettings};
+    use crate::astro::forces::{DistanceLaw, FreeParameters, NonGravModel};
+    use std::cell::Cell;
+
+    let gravity = ForceModel::new(&[Body::Jupiter], false, None).unwrap();
+    let truth = gravity
+        .clone()
+        .with_nongrav(NonGravModel::new(
+            DistanceLaw::InverseSquare,
+            [3e-6, 0.0, 0.0],
+            FreeParameters::new(true, false, false),
+        ))
+        .unwrap();
+    let mut observations = belt_observations(&truth, -120.0, 60, 4.0);
+    add_noise(&mut observations, 7);
+    let (epoch, start) = belt_state();
+    let problem = FitProblem {
+        ephemeris: &WobblingSun,
+        model: &gravity,
+        observations: &observations,
+    };
+    let observers = observer_places(&problem).unwrap();
+    let failures_left = Cell::new(gravity_failures);
+    let fit_one = |m: &ModelFit, from: &Start, used: &[bool], settings: &FitSettings| {
+        let model = match m.law {
+            None => gravity.clone(),
+            Some(law) => {
+                let mut a = [0.0; 3];
+                for c in m.free.indices() {
+                    a[c] = from.a[c];
+                }
+                gravity
+                    .clone()
+                    .with_nongrav(NonGravModel::new(law, a, m.free))?
+            }
+        };
+        let mut settings = settings.clone();
+        if m.law.is_none() && failures_left.get() > 0 {
+            failures_left.set(failures_left.get() - 1);
+            settings.max_iterations = 0;
+            settings.stall_tolerance_sigma = 0.0;
+        }
+        let problem = FitProblem {
+            ephemeris: &WobblingSun,
+            model: &model,
+            observations: &observations,
+        };
+        fit_orbit_observed(&problem, &observers, epoch, &from.state, &settings, used)
+    };
+    let settings = LadderSettings {
+        laws: vec![DistanceLaw::InverseSquare],
+        ..LadderSettings::default()
+    };
+    let ladder = run_ladder(&fit_one, &start, observations.len(), &settings).unwrap();
+    (observations, ladder)
 }

@@ -8,13 +8,13 @@ use std::collections::BTreeMap;
 use serde::Serialize;
 
 use crate::fit::ladder::{law_name, ModelFit, ModelTest, TestForm};
-use crate::fit::lsq::{OrbitFit, Termination};
+use crate::fit::lsq::OrbitFit;
 use crate::fit::observe::AstrometricObservation;
 use crate::fit::solution::{DistantInverseA, ElementEstimates, Estimate, TrendTest};
 
 use super::brightness::BrightnessDocument;
 use super::catalog_bias::BiasSummary;
-use super::{ModelDerived, RecordsSolved};
+use super::{ModelDerived, RecordsSolved, Solution};
 
 /// Days from JD 0 to J2000 (JD 2451545.0 TDB).
 const J2000_JD: f64 = 2_451_545.0;
@@ -48,8 +48,11 @@ pub struct SolutionDocument {
     /// The epoch of the reported elements.
     pub elements_epoch_tdb_jd: f64,
     /// The largest Bonferroni-corrected significance of any
-    /// non-gravitational model against gravity alone, Gaussian sigma.
-    pub ng_significance_sigma: f64,
+    /// non-gravitational model against gravity alone, Gaussian sigma; null
+    /// when the comparison could not be made (never 0 for unknown).
+    pub ng_significance_sigma: Option<f64>,
+    /// Why `ng_significance_sigma` is null.
+    pub ng_significance_unknown: Option<String>,
     /// Name of the recommended model.
     pub recommended: Option<String>,
     /// Non-gravitational models tried (the Bonferroni factor).
@@ -82,6 +85,9 @@ pub struct ModelDocument {
     pub converged: bool,
     /// Why the fit stopped ("converged", or the failure reason).
     pub termination: String,
+    /// The models whose states this one was refitted from, in order,
+    /// after failing from its own start (empty when it was not).
+    pub restarted_from: Vec<String>,
     pub chi2: Option<f64>,
     pub dof: Option<usize>,
     pub rms_arcsec: Option<f64>,
@@ -159,18 +165,6 @@ pub struct TrendDocument {
 
 pub fn term_name(component: usize) -> String {
     format!("A{}", component + 1)
-}
-
-pub fn termination_text(t: &Termination) -> String {
-    match t {
-        Termination::Converged => "converged".into(),
-        Termination::MaxIterations => "iteration limit reached".into(),
-        Termination::Diverged { reason } => format!("diverged: {reason}"),
-        Termination::Singular { condition_number } => {
-            format!("singular normal matrix (condition number {condition_number:.3e})")
-        }
-        Termination::OutlierCycle => "outlier rejection did not settle".into(),
-    }
 }
 
 fn test_document(t: &ModelTest, models: &[ModelFit]) -> TestDocument {
@@ -293,10 +287,8 @@ fn model_document(
         law: m.law.map(|l| law_name(l).to_string()),
         recommended: m.recommended,
         converged: m.converged(),
-        termination: match &m.fit {
-            Ok(f) => termination_text(&f.termination),
-            Err(reason) => reason.clone(),
-        },
+        termination: m.termination_text(),
+        restarted_from: m.restarted_from.iter().map(|j| models[*j].name()).collect(),
         chi2: fit.map(|f| f.chi2),
         dof: fit.map(|f| f.dof),
         rms_arcsec: fit.map(|f| f.rms_arcsec),
@@ -328,7 +320,22 @@ fn model_document(
 
 impl SolutionDocument {
     pub fn new(solved: &RecordsSolved) -> Self {
-        let solution = &solved.solution;
+        Self::of_solution(
+            &solved.solution,
+            solved.ephemeris.describe(),
+            solved.catalog_bias.clone(),
+            solved.brightness.clone(),
+        )
+    }
+
+    /// The document of a solution with what came with it: the ephemeris'
+    /// description, the catalogue bias summary and the brightness laws.
+    pub fn of_solution(
+        solution: &Solution,
+        ephemeris: String,
+        catalog_bias: Option<BiasSummary>,
+        photometry: Option<BrightnessDocument>,
+    ) -> Self {
         let ladder = &solution.ladder;
         let method = match &solution.initial.method {
             crate::fit::initial::Method::Gauss { .. } => "gauss",
@@ -359,7 +366,8 @@ impl SolutionDocument {
             last_obs_utc: by_time(true),
             epoch_tdb_jd: solution.epoch.tdb_jd(),
             elements_epoch_tdb_jd: solution.elements_epoch.tdb_jd(),
-            ng_significance_sigma: ladder.ng_significance_sigma,
+            ng_significance_sigma: ladder.ng_significance.sigma(),
+            ng_significance_unknown: ladder.ng_significance.unknown_reason().map(str::to_string),
             recommended: ladder.recommended_model().map(ModelFit::name),
             alternatives: ladder.alternatives,
             initial_orbit: InitialDocument {
@@ -367,9 +375,9 @@ impl SolutionDocument {
                 rms_arcsec: solution.initial.rms_arcsec,
                 scored_observations: solution.initial.scored_observations,
             },
-            ephemeris: solved.ephemeris.describe(),
-            catalog_bias: solved.catalog_bias.clone(),
-            photometry: solved.brightness.clone(),
+            ephemeris,
+            catalog_bias,
+            photometry,
             models: ladder
                 .models
                 .iter()

@@ -24,21 +24,36 @@ fn or_dash<T>(v: Option<T>, f: impl Fn(T) -> String) -> String {
 
 /// The one-sentence answer to "does gravity alone still explain the data?"
 pub fn verdict(doc: &SolutionDocument) -> String {
-    let Some(recommended) = doc.models.iter().find(|m| m.recommended) else {
-        return "No model converged: the data do not determine an orbit yet.".into();
+    let significance = match (doc.ng_significance_sigma, &doc.ng_significance_unknown) {
+        (Some(s), _) => Ok(s),
+        (None, Some(reason)) => Err(reason.as_str()),
+        (None, None) => Err("no figure was computed"),
     };
-    if recommended.terms.is_empty() {
-        format!(
-            "Gravity alone explains the data (largest non-gravitational significance {:.1} sigma \
-             over {} alternatives).",
-            doc.ng_significance_sigma, doc.alternatives
-        )
-    } else {
-        format!(
-            "Gravity alone does not explain the data: {} is justified at {:.1} sigma \
+    let recommended = doc.models.iter().find(|m| m.recommended);
+    match (recommended, significance) {
+        (None, Err(reason)) if doc.models.iter().any(|m| m.converged) => format!(
+            "No model can be recommended: the comparison with gravity alone could not be made \
+             ({reason})."
+        ),
+        (None, _) => "No model converged: the data do not determine an orbit yet.".into(),
+        (Some(r), Ok(sigma)) if r.terms.is_empty() => format!(
+            "Gravity alone explains the data (largest non-gravitational significance {sigma:.1} \
+             sigma over {} alternatives).",
+            doc.alternatives
+        ),
+        (Some(r), Err(reason)) if r.terms.is_empty() => format!(
+            "Gravity alone fits, but the comparison with non-gravitational models could not be \
+             made ({reason})."
+        ),
+        (Some(r), Ok(sigma)) => format!(
+            "Gravity alone does not explain the data: {} is justified at {sigma:.1} sigma \
              (Bonferroni over {} alternatives).",
-            recommended.name, doc.ng_significance_sigma, doc.alternatives
-        )
+            r.name, doc.alternatives
+        ),
+        (Some(r), Err(reason)) => format!(
+            "{} fits best, but the comparison with gravity alone could not be made ({reason}).",
+            r.name
+        ),
     }
 }
 
@@ -71,6 +86,21 @@ fn ladder_table(out: &mut String, doc: &SolutionDocument) {
                 out,
                 "{mark} {:<28} not converged: {}",
                 m.name, m.termination
+            );
+        }
+    }
+    for m in &doc.models {
+        if !m.restarted_from.is_empty() {
+            let outcome = if m.converged {
+                "converged"
+            } else {
+                "failed again"
+            };
+            let _ = writeln!(
+                out,
+                "  ({} failed from its own start; restarted from the {} fits, it {outcome})",
+                m.name,
+                m.restarted_from.join(", ")
             );
         }
     }
@@ -233,5 +263,68 @@ Brightness ({} magnitudes, at the recommended orbit's geometry):",
     }
     for problem in &p.problems {
         let _ = writeln!(out, "  note: {problem}");
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::astro::time::Epoch;
+    use crate::fit::initial::{InitialOrbit, Method, ScoreModel};
+    use crate::fit::test_support::outgassing_ladder;
+    use crate::solve::Solution;
+
+    /// The document and report of a ladder whose gravity-only fit was made
+    /// to fail on every attempt.
+    fn document_of_forced_failure() -> SolutionDocument {
+        let (observations, ladder) = outgassing_ladder(usize::MAX);
+        let times: Vec<Epoch> = observations.iter().map(|o| o.time.tdb()).collect();
+        let (first, last) = (times[0], times[times.len() - 1]);
+        let epoch = crate::fit::test_support::belt_state().0;
+        let n = ladder.models.len();
+        let solution = Solution {
+            object: "2026 ZA1".into(),
+            observations,
+            first,
+            last,
+            epoch,
+            elements_epoch: epoch,
+            initial: InitialOrbit {
+                epoch,
+                state: crate::fit::test_support::belt_state().1,
+                rms_arcsec: 0.0,
+                scored_with: ScoreModel::TwoBody,
+                scored_observations: 0,
+                method: Method::Gauss {
+                    observations: [0, 1, 2],
+                    root_r2_au: 2.4,
+                    iterations: 0,
+                },
+            },
+            ladder,
+            derived: vec![None; n],
+        };
+        SolutionDocument::of_solution(&solution, "test".into(), None, None)
+    }
+
+    #[test]
+    fn an_unknown_significance_is_said_not_zeroed() {
+        let doc = document_of_forced_failure();
+        let json = serde_json::to_value(&doc).unwrap();
+        assert!(json["ng_significance_sigma"].is_null(), "{json}");
+        let reason = json["ng_significance_unknown"].as_str().unwrap();
+        assert!(
+            reason.contains("gravity alone did not converge"),
+            "{reason}"
+        );
+        let v = verdict(&doc);
+        assert!(v.contains("could not be made"), "{v}");
+        assert!(!v.contains("0.0 sigma"), "{v}");
+        let report = text(&doc);
+        assert!(
+            report.contains("restarted from the A1 inverse-square"),
+            "{report}"
+        );
+        assert!(!report.contains("justified at"), "{report}");
     }
 }

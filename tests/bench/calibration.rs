@@ -4,7 +4,8 @@
 //! Run: `cargo bench --bench calibration` (after
 //! `bash tests/reference/fetch-de421.sh`). The number of realisations per
 //! body is `PERIHELIX_CALIBRATION_REALISATIONS` (default 50); the document
-//! is written to docs/accuracy.md, or to `PERIHELIX_CALIBRATION_OUT`.
+//! is written to its section of docs/accuracy.md (the stress bench writes
+//! another), or to `PERIHELIX_CALIBRATION_OUT`.
 //!
 //! Each realisation is a fresh Gaussian noise draw on the noise-free
 //! astrometry (tests/common), fitted with the truth's model structure and
@@ -192,7 +193,7 @@ fn main() {
     }
     doc.push('\n');
     doc.push_str(FOOTER);
-    if let Err(e) = std::fs::write(&out, doc) {
+    if let Err(e) = common::write_section(&out, "calibration", &doc) {
         eprintln!("cannot write {}: {e}", out.display());
         std::process::exit(1);
     }
@@ -298,6 +299,6 @@ tests/fit_calibration.rs.
     PERIHELIX_CALIBRATION_REALISATIONS=200 cargo bench --bench calibration
 
 The seeds are fixed, so every figure but the times repeats exactly for
-the same R and code. The bench overwrites this file; commit it with the change that moved
+the same R and code. The bench rewrites its section of this file; commit it with the change that moved
 the figures.
 ";

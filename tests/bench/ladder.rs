@@ -260,10 +260,7 @@ fn show(label: &str, l: &Ladder) {
             if m.recommended { "  <- recommended" } else { "" }
         );
     }
-    println!(
-        "  non-gravitational significance {:.1} sigma",
-        l.ng_significance_sigma
-    );
+    println!("  non-gravitational significance {:?}", l.ng_significance);
 }
 
 fn benches(c: &mut Criterion) {

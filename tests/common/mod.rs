@@ -4,6 +4,8 @@
 //! jplephem 2.24 and pyerfa 2.0.1.5; see tests/reference/README.md).
 #![allow(dead_code)]
 
+pub mod stress;
+
 use std::path::{Path, PathBuf};
 
 use nalgebra::{DMatrix, DVector, Vector3};
@@ -390,4 +392,25 @@ impl Calibration {
     pub fn within_bound(&self) -> bool {
         (self.bound_low..=self.bound_high).contains(&self.mean_d2)
     }
+}
+
+/// Replaces the part of a generated document between
+/// `<!-- begin NAME -->` and `<!-- end NAME -->` with `content`, keeping
+/// the rest (several benches write one document); appends the section when
+/// the markers are missing.
+pub fn write_section(path: &Path, name: &str, content: &str) -> std::io::Result<()> {
+    let begin = format!("<!-- begin {name} -->");
+    let end = format!("<!-- end {name} -->");
+    let old = match std::fs::read_to_string(path) {
+        Ok(s) => s,
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => String::new(),
+        Err(e) => return Err(e),
+    };
+    let section = format!("{begin}\n{}\n{end}", content.trim_end());
+    let new = match (old.find(&begin), old.find(&end)) {
+        (Some(b), Some(e)) if e > b => format!("{}{section}{}", &old[..b], &old[e + end.len()..]),
+        _ if old.is_empty() => format!("{section}\n"),
+        _ => format!("{}\n\n{section}\n", old.trim_end()),
+    };
+    std::fs::write(path, new)
 }
