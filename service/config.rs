@@ -141,6 +141,53 @@ impl Default for FitSettings {
     }
 }
 
+/// When the daemon refits, and how many fits run at once.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct RefitSettings {
+    /// Refit an object this long after its last new observation, s.
+    pub quiet_period_s: f64,
+    /// ...but never later than this after the first one, s.
+    pub max_delay_s: f64,
+    /// Fits at once, each on its own blocking thread.
+    pub workers: usize,
+    /// Periodic scan of the incoming directory, s.
+    pub rescan_interval_s: f64,
+}
+
+impl Default for RefitSettings {
+    fn default() -> Self {
+        Self {
+            quiet_period_s: 20.0,
+            max_delay_s: 600.0,
+            workers: 1,
+            rescan_interval_s: 60.0,
+        }
+    }
+}
+
+/// How the daemon logs.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct LoggingSettings {
+    /// A tracing filter ("info", "perihelix=debug,info", ...); RUST_LOG,
+    /// when set, wins.
+    pub level: String,
+    /// Plain lines (journald stores them well) or one JSON object a line.
+    pub json: bool,
+}
+
+impl Default for LoggingSettings {
+    fn default() -> Self {
+        Self {
+            level: "info".into(),
+            json: false,
+        }
+    }
+}
+
+/// The environment variable that can carry the API token (so it never
+/// has to sit in a unit file or the configuration).
+pub const API_TOKEN_ENV: &str = "PERIHELIX_API_TOKEN";
+
 /// The JSON endpoint.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct ApiSettings {
@@ -222,7 +269,9 @@ pub struct Config {
     pub fit: FitSettings,
     /// Extra designation links: each group names one object.
     pub links: Vec<Vec<DesignationKey>>,
+    pub refit: RefitSettings,
     pub api: ApiSettings,
+    pub logging: LoggingSettings,
     pub alerts: AlertSettings,
 }
 
@@ -243,10 +292,12 @@ impl Config {
             leap_seconds_file: None,
             fit: FitSettings::default(),
             links: Vec::new(),
+            refit: RefitSettings::default(),
             api: ApiSettings {
                 bind: SocketAddr::from(([127, 0, 0, 1], 8620)),
                 token: None,
             },
+            logging: LoggingSettings::default(),
             alerts: AlertSettings::default(),
         }
     }
@@ -414,13 +465,34 @@ fn read_config(top: &TableReader<'_, '_>, extra: &mut Vec<ConfigProblem>) -> Opt
         t.finish();
     }
 
+    let refit = match top.table("refit") {
+        Some(t) => {
+            let r = read_refit(&t);
+            t.finish();
+            r
+        }
+        None => Some(RefitSettings::default()),
+    };
+
+    let logging = match top.table("logging") {
+        Some(t) => {
+            let l = read_logging(&t);
+            t.finish();
+            l
+        }
+        None => Some(LoggingSettings::default()),
+    };
+
     let api = match top.table("api") {
         Some(t) => {
             let a = read_api(&t);
             t.finish();
             a
         }
-        None => Some(Config::embedded_default(Path::new(".")).api),
+        None => Some(ApiSettings {
+            token: api_token_from_env(),
+            ..Config::embedded_default(Path::new(".")).api
+        }),
     };
 
     let alerts = match top.table("alerts") {
@@ -440,8 +512,73 @@ fn read_config(top: &TableReader<'_, '_>, extra: &mut Vec<ConfigProblem>) -> Opt
         leap_seconds_file,
         fit: fit?,
         links,
+        refit: refit?,
         api: api?,
+        logging: logging?,
         alerts: alerts?,
+    })
+}
+
+fn read_refit(t: &TableReader<'_, '_>) -> Option<RefitSettings> {
+    let d = RefitSettings::default();
+    let non_negative = |x: f64| {
+        if x >= 0.0 && x.is_finite() {
+            Ok(())
+        } else {
+            Err(format!("{x} is not a duration in seconds (0 or more)"))
+        }
+    };
+    let quiet = t.f64_where("quiet_period_s", false, non_negative);
+    let max_delay = t.f64_where("max_delay_s", false, non_negative);
+    let workers = t.u64("workers", false);
+    let rescan = t.f64_where("rescan_interval_s", false, positive);
+    if workers == Some(0) {
+        t.problem("workers", "at least one worker is needed");
+    }
+    let quiet_period_s = quiet.unwrap_or(d.quiet_period_s);
+    let max_delay_s = max_delay.unwrap_or(d.max_delay_s);
+    if max_delay_s < quiet_period_s {
+        t.problem(
+            "max_delay_s",
+            format!("{max_delay_s} is below quiet_period_s ({quiet_period_s}): no refit could wait for quiet"),
+        );
+    }
+    if t.source().has_problem_under(&t.full_key("")) {
+        return None;
+    }
+    Some(RefitSettings {
+        quiet_period_s,
+        max_delay_s,
+        workers: workers.map_or(d.workers, |w| usize::try_from(w).unwrap_or(usize::MAX)),
+        rescan_interval_s: rescan.unwrap_or(d.rescan_interval_s),
+    })
+}
+
+fn read_logging(t: &TableReader<'_, '_>) -> Option<LoggingSettings> {
+    let d = LoggingSettings::default();
+    let level = t.string("level", false);
+    if let Some(l) = &level {
+        if let Err(e) = tracing_subscriber::EnvFilter::try_new(l) {
+            t.problem("level", format!("'{l}' is not a log filter: {e}"));
+        }
+    }
+    let json = match t.string("format", false).as_deref() {
+        None | Some("plain") => Some(false),
+        Some("json") => Some(true),
+        Some(other) => {
+            t.problem(
+                "format",
+                format!("'{other}' is not a format: use \"plain\" or \"json\""),
+            );
+            None
+        }
+    };
+    if t.source().has_problem_under(&t.full_key("")) {
+        return None;
+    }
+    Some(LoggingSettings {
+        level: level.unwrap_or(d.level),
+        json: json.unwrap_or(d.json),
     })
 }
 
@@ -585,7 +722,7 @@ fn read_api(t: &TableReader<'_, '_>) -> Option<ApiSettings> {
                 None
             }
         });
-    let token = read_secret(t, "token", "token_file");
+    let token = read_secret(t, "token", "token_file").or_else(api_token_from_env);
     if t.source().has_problem_under(&t.full_key("")) {
         return None;
     }
@@ -593,11 +730,21 @@ fn read_api(t: &TableReader<'_, '_>) -> Option<ApiSettings> {
     if !bind.ip().is_loopback() && token.is_none() {
         t.problem(
             "token_file",
-            format!("the API binds {bind}, beyond loopback, so it needs a token"),
+            format!(
+                "the API binds {bind}, beyond loopback, so it needs a token (token_file or {API_TOKEN_ENV})"
+            ),
         );
         return None;
     }
     Some(ApiSettings { bind, token })
+}
+
+/// The token the environment gives, if any.
+fn api_token_from_env() -> Option<String> {
+    std::env::var(API_TOKEN_ENV)
+        .ok()
+        .map(|s| s.trim().to_string())
+        .filter(|s| !s.is_empty())
 }
 
 /// A secret given inline (`key`) or, better, in a file (`file_key`).

@@ -174,3 +174,27 @@ fn a_bad_leap_second_table_is_reported_at_its_own_line() {
     assert!(err.problems[0].file.ends_with("leap.list"), "{err}");
     assert_eq!(err.problems[0].line, 3, "{err}");
 }
+
+#[test]
+fn refit_and_logging_settings_are_read_and_checked() {
+    let base = "[directories]\nincoming = \"a\"\narchive = \"b\"\nrejected = \"c\"\ndatabase = \"d\"\n";
+    let text = format!(
+        "{base}[refit]\nquiet_period_s = 1.5\nmax_delay_s = 30\nworkers = 2\nrescan_interval_s = 5\n[logging]\nlevel = \"perihelix=debug,info\"\nformat = \"json\"\n"
+    );
+    let (_dir, path) = config_in_tempdir(&text);
+    let cfg = Config::load(&path).unwrap();
+    assert_eq!(cfg.refit.quiet_period_s, 1.5);
+    assert_eq!(cfg.refit.max_delay_s, 30.0);
+    assert_eq!(cfg.refit.workers, 2);
+    assert_eq!(cfg.refit.rescan_interval_s, 5.0);
+    assert!(cfg.logging.json);
+    let text = format!(
+        "{base}[refit]\nquiet_period_s = 60\nmax_delay_s = 30\nworkers = 0\n[logging]\nformat = \"xml\"\n"
+    );
+    let (_dir, path) = config_in_tempdir(&text);
+    let err = Config::load(&path).unwrap_err();
+    let keys: Vec<&str> = err.problems.iter().map(|p| p.key.as_str()).collect();
+    assert!(keys.contains(&"refit.workers"), "{err}");
+    assert!(keys.contains(&"refit.max_delay_s"), "{err}");
+    assert!(keys.contains(&"logging.format"), "{err}");
+}
