@@ -10,6 +10,7 @@
 //! - [`config`]: the one typed configuration.
 //! - [`solve`]: from observation records to a fitted ladder of models and
 //!   its documents (JSON and text), for the command line and the daemon.
+//! - [`store`]: the daemon's journal (the truth) and its sled index.
 // Constants are written with the digits their sources print (DE440 GM
 // values, integrator coefficients), even where f64 keeps fewer: the text is
 // then checkable against the source.
@@ -20,3 +21,4 @@ pub mod config;
 pub mod fit;
 pub mod ingest;
 pub mod solve;
+pub mod store;

@@ -177,7 +177,8 @@ fn a_bad_leap_second_table_is_reported_at_its_own_line() {
 
 #[test]
 fn refit_and_logging_settings_are_read_and_checked() {
-    let base = "[directories]\nincoming = \"a\"\narchive = \"b\"\nrejected = \"c\"\ndatabase = \"d\"\n";
+    let base =
+        "[directories]\nincoming = \"a\"\narchive = \"b\"\nrejected = \"c\"\ndatabase = \"d\"\n";
     let text = format!(
         "{base}[refit]\nquiet_period_s = 1.5\nmax_delay_s = 30\nworkers = 2\nrescan_interval_s = 5\n[logging]\nlevel = \"perihelix=debug,info\"\nformat = \"json\"\n"
     );

@@ -187,6 +187,11 @@ impl Linker {
         members.into_iter().map(|i| self.keys[i].clone()).collect()
     }
 
+    /// Designation keys known so far.
+    pub fn key_count(&self) -> usize {
+        self.keys.len()
+    }
+
     /// Ids retired by merges so far: (absorbed id, id it merged into).
     pub fn absorbed(&self) -> &[(ObjectId, ObjectId)] {
         &self.absorbed

@@ -299,3 +299,20 @@ pub fn read_file(
 ) -> IngestOutcome {
     ingest_files(&[path], stations, links)
 }
+
+/// Validates a stored record's text again, as the readers do (without the
+/// ADES-only demands, which the record met when it was first read).
+pub fn revalidate(
+    text: RecordText,
+    source: record::Source,
+    context: Option<Arc<BlockContext>>,
+    stations: &StationList,
+) -> Result<Observation, String> {
+    let rules = validate::Rules {
+        ades_mandatory: false,
+    };
+    validate::build(text, source, context, stations, rules).map_err(|p| match p.field {
+        Some(f) => format!("{}: {}", f.ades_name(), p.problem),
+        None => p.problem.to_string(),
+    })
+}

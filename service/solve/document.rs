@@ -5,7 +5,7 @@
 
 use std::collections::BTreeMap;
 
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 use crate::fit::ladder::{law_name, ModelFit, ModelTest, TestForm};
 use crate::fit::lsq::OrbitFit;
@@ -19,7 +19,7 @@ use super::{ModelDerived, RecordsSolved, Solution};
 /// Days from JD 0 to J2000 (JD 2451545.0 TDB).
 const J2000_JD: f64 = 2_451_545.0;
 
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct ValueSigma {
     pub value: f64,
     pub sigma: f64,

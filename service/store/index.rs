@@ -1,0 +1,606 @@
+//! The sled index: what the journal says, arranged for reading.
+//!
+//! Trees (keys big-endian or fixed-width text, so ranges scan in order):
+//! - `obs`: object id / normalised UTC time / content key -> observation
+//! - `content`: content key -> object id (re-ingest is idempotent)
+//! - `objects`: object id -> [`ObjectState`]
+//! - `solutions`: object id / sequence (u64 BE) -> [`SolutionRecord`]
+//! - `names`: designation text -> object id (lookup by any designation)
+//! - `links`: journal seq (u64 BE) / index (u32 BE) -> designation group,
+//!   every group that changed the linker, in order, so the linker is
+//!   rebuilt exactly at open
+//! - `meta`: schema version and the journal position applied so far
+//!
+//! Each journal entry is applied in one sled transaction together with the
+//! applied position, so after a crash the index is either before or after
+//! an entry, never half-way, and replaying the journal's tail is enough.
+//! sled makes nothing durable before `flush`, which is why the journal is
+//! the truth.
+
+use std::collections::{BTreeMap, BTreeSet};
+use std::path::{Path, PathBuf};
+use std::sync::Mutex;
+
+use sled::transaction::{ConflictableTransactionError, TransactionError, Transactional};
+use sled::Tree;
+
+use crate::ingest::{DesignationKey, Linker, ObjectId};
+
+use super::error::StoreError;
+use super::records::{
+    IndexedObservation, JournalEntry, JournalLine, ObjectState, ObservationEntry, SolutionRecord,
+};
+
+/// The schema this program writes. Version 1: the trees above.
+pub const SCHEMA_VERSION: u32 = 1;
+
+/// sled's cache; its default (1 GiB) would let the daemon grow far beyond
+/// what an observatory machine should give it.
+const CACHE_BYTES: u64 = 32 * 1024 * 1024;
+
+/// How long an open waits for a lock this process may still be letting go.
+const LOCK_PATIENCE: std::time::Duration = std::time::Duration::from_secs(3);
+
+const META_SCHEMA: &[u8] = b"schema";
+const META_APPLIED: &[u8] = b"applied";
+
+pub struct Index {
+    path: PathBuf,
+    db: sled::Db,
+    obs: Tree,
+    content: Tree,
+    objects: Tree,
+    solutions: Tree,
+    names: Tree,
+    links: Tree,
+    meta: Tree,
+    /// The designation linker as of the applied position (the only
+    /// writer is the one applying entries).
+    linker: Mutex<Linker>,
+}
+
+/// What applying one observations entry did.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct ObservationsApplied {
+    /// Observations stored, per object.
+    pub added: BTreeMap<String, usize>,
+    /// Observations already stored (same content), skipped.
+    pub duplicates: usize,
+    /// Objects merged by a designation link: (absorbed, kept).
+    pub merged: Vec<(String, String)>,
+}
+
+fn obs_prefix(id: &str) -> Vec<u8> {
+    let mut k = id.as_bytes().to_vec();
+    k.push(b'/');
+    k
+}
+
+fn obs_key(id: &str, time: &str, content: &[u8; 32]) -> Vec<u8> {
+    let mut k = obs_prefix(id);
+    k.extend_from_slice(time.as_bytes());
+    k.push(b'/');
+    k.extend_from_slice(content);
+    k
+}
+
+fn solution_key(id: &str, seq: u64) -> Vec<u8> {
+    let mut k = obs_prefix(id);
+    k.extend_from_slice(&seq.to_be_bytes());
+    k
+}
+
+fn encode<T: serde::Serialize>(v: &T) -> Result<Vec<u8>, StoreError> {
+    serde_json::to_vec(v).map_err(|e| StoreError::Encode { why: e.to_string() })
+}
+
+fn decode<T: serde::de::DeserializeOwned>(what: &str, bytes: &[u8]) -> Result<T, StoreError> {
+    serde_json::from_slice(bytes).map_err(|e| StoreError::Corrupt {
+        what: format!("index record {what}"),
+        why: e.to_string(),
+    })
+}
+
+/// Bare designations an analyst types ("2026 ZA7") besides the spelt-out
+/// keys ("provID:2026 ZA7"); a trkSub is unique only with its station.
+fn lookup_names(key: &DesignationKey) -> Vec<String> {
+    let mut names = vec![key.to_string()];
+    match key {
+        DesignationKey::PermId(t) | DesignationKey::ProvId(t) => names.push(t.clone()),
+        DesignationKey::TrkSub { name, station } => names.push(format!("{name}@{station}")),
+    }
+    names
+}
+
+impl Index {
+    /// Opens the index at `path`, creating it when new.
+    pub fn open(path: &Path) -> Result<Self, StoreError> {
+        // sled's flusher thread keeps the lock a moment after the last
+        // handle in this process is dropped: a reopen waits that long
+        // before calling the store locked by someone else.
+        let deadline = std::time::Instant::now() + LOCK_PATIENCE;
+        let db = loop {
+            match Self::open_db(path) {
+                Err(StoreError::Locked { .. }) if std::time::Instant::now() < deadline => {
+                    std::thread::sleep(std::time::Duration::from_millis(50));
+                }
+                other => break other?,
+            }
+        };
+        let tree = |name: &str| {
+            db.open_tree(name).map_err(|e| StoreError::Index {
+                path: path.to_path_buf(),
+                why: e.to_string(),
+            })
+        };
+        let index = Self {
+            path: path.to_path_buf(),
+            obs: tree("obs")?,
+            content: tree("content")?,
+            objects: tree("objects")?,
+            solutions: tree("solutions")?,
+            names: tree("names")?,
+            links: tree("links")?,
+            meta: tree("meta")?,
+            db,
+            linker: Mutex::new(Linker::default()),
+        };
+        index.check_schema()?;
+        index.load_linker()?;
+        Ok(index)
+    }
+
+    fn open_db(path: &Path) -> Result<sled::Db, StoreError> {
+        sled::Config::new()
+            .path(path)
+            .cache_capacity(CACHE_BYTES)
+            .open()
+            .map_err(|e| match e {
+                // sled words its lock failure as an I/O error of its own.
+                sled::Error::Io(io)
+                    if io.kind() == std::io::ErrorKind::WouldBlock
+                        || io.to_string().contains("could not acquire lock") =>
+                {
+                    StoreError::Locked {
+                        path: path.to_path_buf(),
+                    }
+                }
+                other => StoreError::Index {
+                    path: path.to_path_buf(),
+                    why: other.to_string(),
+                },
+            })
+    }
+
+    fn check_schema(&self) -> Result<(), StoreError> {
+        match self.meta.get(META_SCHEMA)? {
+            None => {
+                self.meta
+                    .insert(META_SCHEMA, &SCHEMA_VERSION.to_be_bytes())?;
+                Ok(())
+            }
+            Some(v) => {
+                let found = <[u8; 4]>::try_from(v.as_ref())
+                    .map(u32::from_be_bytes)
+                    .map_err(|_| StoreError::Index {
+                        path: self.path.clone(),
+                        why: "the schema version is unreadable".into(),
+                    })?;
+                // Migrations from older versions go here, one step each;
+                // version 1 is the first.
+                if found > SCHEMA_VERSION {
+                    return Err(StoreError::Schema {
+                        path: self.path.clone(),
+                        found,
+                        known: SCHEMA_VERSION,
+                    });
+                }
+                Ok(())
+            }
+        }
+    }
+
+    fn load_linker(&self) -> Result<(), StoreError> {
+        let mut linker = Linker::default();
+        for item in self.links.iter() {
+            let (_, v) = item?;
+            let texts: Vec<String> = decode("links", &v)?;
+            let group: Vec<DesignationKey> = texts
+                .iter()
+                .map(|t| DesignationKey::parse(t))
+                .collect::<Result<_, _>>()
+                .map_err(|why| StoreError::Corrupt {
+                    what: "index links".into(),
+                    why,
+                })?;
+            linker.link_all(&group);
+        }
+        if let Ok(mut l) = self.linker.lock() {
+            *l = linker;
+        }
+        Ok(())
+    }
+
+    /// The journal position applied so far: (byte offset after the last
+    /// applied entry, its sequence number).
+    pub fn applied(&self) -> Result<Option<(u64, u64)>, StoreError> {
+        Ok(match self.meta.get(META_APPLIED)? {
+            None => None,
+            Some(v) if v.len() == 16 => {
+                let mut a = [0u8; 8];
+                let mut b = [0u8; 8];
+                a.copy_from_slice(&v[..8]);
+                b.copy_from_slice(&v[8..]);
+                Some((u64::from_be_bytes(a), u64::from_be_bytes(b)))
+            }
+            Some(_) => {
+                return Err(StoreError::Corrupt {
+                    what: "index meta".into(),
+                    why: "the applied position is unreadable".into(),
+                })
+            }
+        })
+    }
+
+    fn applied_value(end_offset: u64, seq: u64) -> Vec<u8> {
+        let mut v = end_offset.to_be_bytes().to_vec();
+        v.extend_from_slice(&seq.to_be_bytes());
+        v
+    }
+
+    /// sled's own flush: what is applied survives a crash of the process.
+    pub fn flush(&self) -> Result<(), StoreError> {
+        self.db.flush()?;
+        Ok(())
+    }
+
+    /// Applies one journal entry (idempotently: an entry at or before the
+    /// applied position changes nothing).
+    pub fn apply(
+        &self,
+        line: &JournalLine,
+        end_offset: u64,
+    ) -> Result<ObservationsApplied, StoreError> {
+        if let Some((_, seq)) = self.applied()? {
+            if line.seq <= seq {
+                return Ok(ObservationsApplied::default());
+            }
+        }
+        let applied = Self::applied_value(end_offset, line.seq);
+        match &line.entry {
+            JournalEntry::Observations { observations, .. } => {
+                self.apply_observations(line.seq, observations, &applied)
+            }
+            JournalEntry::Solution { record } => {
+                self.apply_solution(record, &applied)?;
+                Ok(ObservationsApplied::default())
+            }
+        }
+    }
+
+    fn apply_observations(
+        &self,
+        journal_seq: u64,
+        observations: &[ObservationEntry],
+        applied: &[u8],
+    ) -> Result<ObservationsApplied, StoreError> {
+        let mut linker = self
+            .linker
+            .lock()
+            .map_err(|_| StoreError::Sled("the linker lock is poisoned".into()))?
+            .clone();
+        let absorbed_before = linker.absorbed().len();
+        let mut outcome = ObservationsApplied::default();
+        // New observations, each with its designations (duplicates of
+        // stored ones, or repeated within the entry, are skipped).
+        let mut fresh: Vec<(IndexedObservation, Vec<DesignationKey>, [u8; 32])> = Vec::new();
+        let mut seen = BTreeSet::new();
+        let mut groups: Vec<Vec<String>> = Vec::new();
+        for entry in observations {
+            let parsed = entry
+                .content_bytes()
+                .and_then(|c| entry.designation_keys().map(|k| (c, k)));
+            let (content, keys) = match parsed {
+                Ok(v) if !v.1.is_empty() => v,
+                Ok(_) => {
+                    return Err(StoreError::Corrupt {
+                        what: format!("journal entry {journal_seq}"),
+                        why: "an observation without a designation".into(),
+                    })
+                }
+                Err(why) => {
+                    return Err(StoreError::Corrupt {
+                        what: format!("journal entry {journal_seq}"),
+                        why,
+                    })
+                }
+            };
+            if !seen.insert(content) || self.content.contains_key(content)? {
+                outcome.duplicates += 1;
+                continue;
+            }
+            let before = (linker.absorbed().len(), linker.key_count());
+            linker.link_all(&keys);
+            if (linker.absorbed().len(), linker.key_count()) != before {
+                groups.push(entry.designations.clone());
+            }
+            fresh.push((
+                IndexedObservation {
+                    journal_seq,
+                    entry: entry.clone(),
+                },
+                keys,
+                content,
+            ));
+        }
+        let merges: Vec<(ObjectId, ObjectId)> = linker.absorbed()[absorbed_before..].to_vec();
+
+        // Object states after this entry, starting from the stored ones.
+        let mut states: BTreeMap<String, ObjectState> = BTreeMap::new();
+        let state_of =
+            |id: &ObjectId, states: &mut BTreeMap<String, ObjectState>| -> Result<(), StoreError> {
+                if !states.contains_key(&id.0) {
+                    let s = match self.objects.get(id.0.as_bytes())? {
+                        Some(v) => decode("objects", &v)?,
+                        None => ObjectState::new(id),
+                    };
+                    states.insert(id.0.clone(), s);
+                }
+                Ok(())
+            };
+        // Merged objects bring their observations under the kept id.
+        let mut moved: Vec<(Vec<u8>, Vec<u8>, sled::IVec)> = Vec::new();
+        for (absorbed, kept) in &merges {
+            state_of(absorbed, &mut states)?;
+            state_of(kept, &mut states)?;
+            for item in self.obs.scan_prefix(obs_prefix(&absorbed.0)) {
+                let (k, v) = item?;
+                let tail = &k[absorbed.0.len()..];
+                let mut new_key = kept.0.as_bytes().to_vec();
+                new_key.extend_from_slice(tail);
+                moved.push((k.to_vec(), new_key, v));
+            }
+            let (a, k) = (absorbed.0.clone(), kept.0.clone());
+            let absorbed_state = states.get(&a).cloned();
+            if let (Some(ab), Some(ks)) = (absorbed_state, states.get_mut(&k)) {
+                ks.observations += ab.observations;
+                ks.last_obs_journal_seq = journal_seq.max(ab.last_obs_journal_seq);
+                ks.first_obs_utc = min_opt(ks.first_obs_utc.take(), ab.first_obs_utc.clone());
+                ks.last_obs_utc = max_opt(ks.last_obs_utc.take(), ab.last_obs_utc.clone());
+            }
+            if let Some(ab) = states.get_mut(&a) {
+                ab.merged_into = Some(k.clone());
+            }
+            outcome.merged.push((a, k));
+        }
+        let mut rows = Vec::with_capacity(fresh.len());
+        for (indexed, keys, content) in fresh {
+            let Some(first) = keys.first() else { continue };
+            let id = linker.object_of(first);
+            state_of(&id, &mut states)?;
+            if let Some(s) = states.get_mut(&id.0) {
+                s.observations += 1;
+                s.last_obs_journal_seq = journal_seq;
+                let t = &indexed.entry.obs_time_utc;
+                s.first_obs_utc = min_opt(s.first_obs_utc.take(), Some(t.clone()));
+                s.last_obs_utc = max_opt(s.last_obs_utc.take(), Some(t.clone()));
+            }
+            *outcome.added.entry(id.0.clone()).or_default() += 1;
+            let key = obs_key(&id.0, &indexed.entry.obs_time_utc, &content);
+            rows.push((key, content, id, encode(&indexed)?));
+        }
+        let mut names: Vec<(String, String)> = Vec::new();
+        for (id, state) in states.iter_mut() {
+            if state.merged_into.is_some() {
+                continue;
+            }
+            let keys = linker.designations(&ObjectId(id.clone()));
+            state.designations = keys.iter().map(ToString::to_string).collect();
+            for k in &keys {
+                for n in lookup_names(k) {
+                    names.push((n, id.clone()));
+                }
+            }
+        }
+        let encoded_states: Vec<(String, Vec<u8>)> = states
+            .iter()
+            .map(|(id, s)| Ok((id.clone(), encode(s)?)))
+            .collect::<Result<_, StoreError>>()?;
+        let encoded_groups: Vec<Vec<u8>> = groups.iter().map(encode).collect::<Result<_, _>>()?;
+
+        let result = (
+            &self.obs,
+            &self.content,
+            &self.objects,
+            &self.names,
+            &self.links,
+            &self.meta,
+        )
+            .transaction(|(obs, content, objects, names_t, links, meta)| {
+                for (old, new, v) in &moved {
+                    obs.insert(new.as_slice(), v.clone())?;
+                    obs.remove(old.as_slice())?;
+                }
+                for (key, ck, id, value) in &rows {
+                    obs.insert(key.as_slice(), value.as_slice())?;
+                    content.insert(&ck[..], id.0.as_bytes())?;
+                }
+                for (id, value) in &encoded_states {
+                    objects.insert(id.as_bytes(), value.as_slice())?;
+                }
+                for (name, id) in &names {
+                    names_t.insert(name.as_bytes(), id.as_bytes())?;
+                }
+                for (i, g) in encoded_groups.iter().enumerate() {
+                    let mut k = journal_seq.to_be_bytes().to_vec();
+                    k.extend_from_slice(&(i as u32).to_be_bytes());
+                    links.insert(k, g.as_slice())?;
+                }
+                meta.insert(META_APPLIED, applied)?;
+                Ok::<_, ConflictableTransactionError<()>>(())
+            });
+        tx_result(result)?;
+        if let Ok(mut l) = self.linker.lock() {
+            *l = linker;
+        }
+        Ok(outcome)
+    }
+
+    fn apply_solution(&self, record: &SolutionRecord, applied: &[u8]) -> Result<(), StoreError> {
+        let key = solution_key(&record.object_id, record.seq);
+        let value = encode(record)?;
+        let mut state: ObjectState = match self.objects.get(record.object_id.as_bytes())? {
+            Some(v) => decode("objects", &v)?,
+            None => ObjectState::new(&ObjectId(record.object_id.clone())),
+        };
+        if record.seq > state.solutions {
+            state.solutions = record.seq;
+            state.latest = Some(record.summary.clone());
+            state.latest_inputs_journal_seq = record.inputs_journal_seq;
+        }
+        let state = encode(&state)?;
+        let result = (&self.solutions, &self.objects, &self.meta).transaction(
+            |(solutions, objects, meta)| {
+                // History is never overwritten: an entry already there
+                // (a replay) is left as it is.
+                if solutions.get(key.as_slice())?.is_none() {
+                    solutions.insert(key.as_slice(), value.as_slice())?;
+                    objects.insert(record.object_id.as_bytes(), state.as_slice())?;
+                }
+                meta.insert(META_APPLIED, applied)?;
+                Ok::<_, ConflictableTransactionError<()>>(())
+            },
+        );
+        tx_result(result)
+    }
+
+    /// Every object not merged into another, in id order.
+    pub fn objects(&self) -> Result<Vec<ObjectState>, StoreError> {
+        let mut out = Vec::new();
+        for item in self.objects.iter() {
+            let (_, v) = item?;
+            let s: ObjectState = decode("objects", &v)?;
+            if s.merged_into.is_none() {
+                out.push(s);
+            }
+        }
+        Ok(out)
+    }
+
+    /// An object by its id or any of its designations (a merged object's
+    /// old id leads to the object it joined).
+    pub fn object(&self, name: &str) -> Result<Option<ObjectState>, StoreError> {
+        let id = match self.objects.get(name.as_bytes())? {
+            Some(_) => name.to_string(),
+            None => match self.names.get(name.as_bytes())? {
+                Some(id) => String::from_utf8_lossy(&id).into_owned(),
+                None => return Ok(None),
+            },
+        };
+        let mut id = id;
+        // Follow merges (a chain is at most as long as the merges made).
+        for _ in 0..64 {
+            let Some(v) = self.objects.get(id.as_bytes())? else {
+                return Ok(None);
+            };
+            let s: ObjectState = decode("objects", &v)?;
+            match s.merged_into {
+                Some(next) => id = next,
+                None => return Ok(Some(s)),
+            }
+        }
+        Ok(None)
+    }
+
+    /// Observations of an object in time order after `after` (an opaque
+    /// cursor from a previous page), at most `limit`; with the cursor of
+    /// the next page.
+    pub fn observations(
+        &self,
+        id: &str,
+        after: Option<&[u8]>,
+        limit: usize,
+    ) -> Result<(Vec<IndexedObservation>, Option<Vec<u8>>), StoreError> {
+        let prefix = obs_prefix(id);
+        let mut end = prefix.clone();
+        end.push(0xff);
+        let start: Vec<u8> = match after {
+            Some(a) if a.starts_with(&prefix) => {
+                let mut s = a.to_vec();
+                s.push(0);
+                s
+            }
+            _ => prefix.clone(),
+        };
+        let mut out = Vec::new();
+        let mut last = None;
+        for item in self.obs.range(start..end) {
+            let (k, v) = item?;
+            if out.len() == limit {
+                return Ok((out, last));
+            }
+            out.push(decode("obs", &v)?);
+            last = Some(k.to_vec());
+        }
+        Ok((out, None))
+    }
+
+    /// Solutions of an object, newest first, with sequence numbers below
+    /// `before` (all when None), at most `limit`.
+    pub fn solutions(
+        &self,
+        id: &str,
+        before: Option<u64>,
+        limit: usize,
+    ) -> Result<Vec<SolutionRecord>, StoreError> {
+        let start = solution_key(id, 0);
+        let end = solution_key(id, before.unwrap_or(u64::MAX));
+        let mut out = Vec::new();
+        for item in self.solutions.range(start..end).rev() {
+            let (_, v) = item?;
+            out.push(decode("solutions", &v)?);
+            if out.len() == limit {
+                break;
+            }
+        }
+        Ok(out)
+    }
+
+    pub fn solution(&self, id: &str, seq: u64) -> Result<Option<SolutionRecord>, StoreError> {
+        match self.solutions.get(solution_key(id, seq))? {
+            Some(v) => Ok(Some(decode("solutions", &v)?)),
+            None => Ok(None),
+        }
+    }
+
+    pub fn has_content(&self, content: &[u8; 32]) -> Result<bool, StoreError> {
+        Ok(self.content.contains_key(content)?)
+    }
+
+    /// Counts over the whole index, for metrics and the rebuild check.
+    pub fn counts(&self) -> (usize, usize, usize) {
+        (self.objects.len(), self.obs.len(), self.solutions.len())
+    }
+}
+
+fn tx_result(r: Result<(), TransactionError<()>>) -> Result<(), StoreError> {
+    match r {
+        Ok(()) => Ok(()),
+        Err(TransactionError::Storage(e)) => Err(e.into()),
+        Err(TransactionError::Abort(())) => Err(StoreError::Sled("transaction aborted".into())),
+    }
+}
+
+fn min_opt(a: Option<String>, b: Option<String>) -> Option<String> {
+    match (a, b) {
+        (Some(a), Some(b)) => Some(a.min(b)),
+        (a, b) => a.or(b),
+    }
+}
+
+fn max_opt(a: Option<String>, b: Option<String>) -> Option<String> {
+    match (a, b) {
+        (Some(a), Some(b)) => Some(a.max(b)),
+        (a, b) => a.or(b),
+    }
+}

@@ -1,0 +1,360 @@
+//! The append-only journal: one JSON line per entry, fsync'd before the
+//! append returns, so an entry the caller has seen acknowledged survives a
+//! crash of the process or of the machine (as far as the disk keeps its
+//! promise to fsync).
+//!
+//! A crash in the middle of an append leaves a last line without its
+//! newline (or cut inside its JSON). That entry was never acknowledged, so
+//! opening the journal cuts it off. A damaged line anywhere else is not a
+//! torn append but corruption, and opening refuses with its line number.
+
+use std::fs::{File, OpenOptions};
+use std::io::{BufRead, BufReader, Seek, SeekFrom, Write};
+use std::path::{Path, PathBuf};
+
+use super::error::StoreError;
+use super::records::{JournalEntry, JournalLine};
+
+pub const JOURNAL_FILE: &str = "journal.jsonl";
+
+pub struct Journal {
+    path: PathBuf,
+    file: File,
+    /// Bytes in the file (the offset of the next entry).
+    length: u64,
+    /// Sequence number of the last entry (0 when empty).
+    last_seq: u64,
+}
+
+/// One entry read back, with where the next one starts.
+pub struct ReadEntry {
+    pub line: JournalLine,
+    pub end_offset: u64,
+}
+
+/// fsync of a directory, so that a file created or renamed in it stays.
+pub fn sync_dir(dir: &Path) -> std::io::Result<()> {
+    File::open(dir)?.sync_all()
+}
+
+impl Journal {
+    /// Opens (or creates) the journal in `dir`, cutting off a torn last
+    /// entry. `known` is an offset and sequence number the caller already
+    /// trusts (the index's applied position), so that only the tail after
+    /// it has to be read to find the last sequence number.
+    pub fn open(dir: &Path, known: Option<(u64, u64)>) -> Result<Self, StoreError> {
+        let io = |e| StoreError::io(dir, e);
+        std::fs::create_dir_all(dir).map_err(io)?;
+        let path = dir.join(JOURNAL_FILE);
+        let created = !path.exists();
+        let file = OpenOptions::new()
+            .create(true)
+            .read(true)
+            .append(true)
+            .open(&path)
+            .map_err(|e| StoreError::io(&path, e))?;
+        if created {
+            sync_dir(dir).map_err(io)?;
+        }
+        let mut journal = Self {
+            path,
+            file,
+            length: 0,
+            last_seq: 0,
+        };
+        let (start, seq) = known.unwrap_or((0, 0));
+        journal.recover(start, seq)?;
+        Ok(journal)
+    }
+
+    pub fn path(&self) -> &Path {
+        &self.path
+    }
+
+    pub fn last_seq(&self) -> u64 {
+        self.last_seq
+    }
+
+    pub fn length(&self) -> u64 {
+        self.length
+    }
+
+    /// Reads from `start` to the end to find the last good entry; cuts a
+    /// torn tail off.
+    fn recover(&mut self, start: u64, seq_at_start: u64) -> Result<(), StoreError> {
+        let size = self
+            .file
+            .metadata()
+            .map_err(|e| StoreError::io(&self.path, e))?
+            .len();
+        if start > size {
+            return Err(StoreError::Corrupt {
+                what: self.path.display().to_string(),
+                why: format!(
+                    "the index has applied it up to byte {start}, but it holds only {size} bytes"
+                ),
+            });
+        }
+        let mut good_end = start;
+        let mut last_seq = seq_at_start;
+        let mut torn = false;
+        {
+            let entries = self.read_from(start)?;
+            for item in entries {
+                match item {
+                    Ok(e) => {
+                        if e.line.seq != last_seq + 1 {
+                            return Err(StoreError::Corrupt {
+                                what: self.path.display().to_string(),
+                                why: format!(
+                                    "entry {} follows entry {last_seq} at byte {good_end}",
+                                    e.line.seq
+                                ),
+                            });
+                        }
+                        last_seq = e.line.seq;
+                        good_end = e.end_offset;
+                    }
+                    Err(ReadProblem::Torn) => {
+                        torn = true;
+                        break;
+                    }
+                    Err(ReadProblem::Damaged { line, why }) => {
+                        return Err(StoreError::Corrupt {
+                            what: self.path.display().to_string(),
+                            why: format!("line {line} (after byte {good_end}): {why}"),
+                        })
+                    }
+                    Err(ReadProblem::Io(e)) => return Err(StoreError::io(&self.path, e)),
+                }
+            }
+        }
+        if torn || good_end < size {
+            tracing::warn!(
+                journal = %self.path.display(),
+                cut_bytes = size - good_end,
+                "cutting off a torn last entry (an append that never completed)"
+            );
+            self.file
+                .set_len(good_end)
+                .and_then(|_| self.file.sync_all())
+                .map_err(|e| StoreError::io(&self.path, e))?;
+        }
+        self.length = good_end;
+        self.last_seq = last_seq;
+        Ok(())
+    }
+
+    /// Appends entries, numbering them, and fsyncs before returning their
+    /// sequence numbers.
+    pub fn append(&mut self, entries: Vec<JournalEntry>) -> Result<Vec<JournalLine>, StoreError> {
+        let mut text = Vec::new();
+        let mut lines = Vec::with_capacity(entries.len());
+        for (i, entry) in entries.into_iter().enumerate() {
+            let line = JournalLine {
+                seq: self.last_seq + 1 + i as u64,
+                entry,
+            };
+            serde_json::to_writer(&mut text, &line)
+                .map_err(|e| StoreError::Encode { why: e.to_string() })?;
+            text.push(b'\n');
+            lines.push(line);
+        }
+        let result = self
+            .file
+            .write_all(&text)
+            .and_then(|_| self.file.sync_data());
+        if let Err(e) = result {
+            // A partial write must not stay in front of the next append:
+            // cut back to the last good entry (and if even that fails, the
+            // torn tail is cut at the next open).
+            let _ = self.file.set_len(self.length);
+            return Err(StoreError::io(&self.path, e));
+        }
+        self.length += text.len() as u64;
+        self.last_seq += lines.len() as u64;
+        Ok(lines)
+    }
+
+    /// The entries from byte `start` on, in order.
+    pub fn read_from(
+        &self,
+        start: u64,
+    ) -> Result<impl Iterator<Item = Result<ReadEntry, ReadProblem>>, StoreError> {
+        let mut file = File::open(&self.path).map_err(|e| StoreError::io(&self.path, e))?;
+        file.seek(SeekFrom::Start(start))
+            .map_err(|e| StoreError::io(&self.path, e))?;
+        Ok(Entries {
+            reader: BufReader::with_capacity(1 << 16, file),
+            offset: start,
+            number: 0,
+            buf: Vec::new(),
+            done: false,
+        })
+    }
+}
+
+/// Why an entry could not be read.
+#[derive(Debug)]
+pub enum ReadProblem {
+    /// The last line has no newline or is cut short: an append that never
+    /// completed.
+    Torn,
+    /// A complete line that is not an entry.
+    Damaged {
+        line: u64,
+        why: String,
+    },
+    Io(std::io::Error),
+}
+
+struct Entries {
+    reader: BufReader<File>,
+    offset: u64,
+    /// Lines read by this iterator (for messages).
+    number: u64,
+    buf: Vec<u8>,
+    done: bool,
+}
+
+impl Iterator for Entries {
+    type Item = Result<ReadEntry, ReadProblem>;
+
+    fn next(&mut self) -> Option<Self::Item> {
+        if self.done {
+            return None;
+        }
+        self.buf.clear();
+        let n = match self.reader.read_until(b'\n', &mut self.buf) {
+            Ok(n) => n,
+            Err(e) => {
+                self.done = true;
+                return Some(Err(ReadProblem::Io(e)));
+            }
+        };
+        if n == 0 {
+            self.done = true;
+            return None;
+        }
+        self.number += 1;
+        if self.buf.last() != Some(&b'\n') {
+            self.done = true;
+            return Some(Err(ReadProblem::Torn));
+        }
+        self.offset += n as u64;
+        match serde_json::from_slice::<JournalLine>(&self.buf) {
+            Ok(line) => Some(Ok(ReadEntry {
+                line,
+                end_offset: self.offset,
+            })),
+            Err(e) => {
+                self.done = true;
+                // Only the very last line can be torn; is there more?
+                let more = self
+                    .reader
+                    .fill_buf()
+                    .map(|b| !b.is_empty())
+                    .unwrap_or(true);
+                if more {
+                    Some(Err(ReadProblem::Damaged {
+                        line: self.number,
+                        why: e.to_string(),
+                    }))
+                } else {
+                    Some(Err(ReadProblem::Torn))
+                }
+            }
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::store::records::{ObservationEntry, Origin, StoredObservation};
+
+    fn entry(name: &str) -> JournalEntry {
+        JournalEntry::Observations {
+            origin: Origin {
+                name: name.into(),
+                archived_as: format!("2026-12-03/{name}"),
+                received_utc: "2026-12-03T10:00:00Z".into(),
+            },
+            observations: vec![ObservationEntry {
+                content_key: "00".repeat(32),
+                designations: vec!["provID:2026 ZA1".into()],
+                obs_time_utc: "2026-12-01T00:00:00.000000000Z".into(),
+                station: "ZQA".into(),
+                record: StoredObservation {
+                    fields: [("stn".to_string(), "ZQA".to_string())].into(),
+                    file: name.into(),
+                    line: 2,
+                    submitter: None,
+                    observatory_code: None,
+                },
+            }],
+        }
+    }
+
+    #[test]
+    fn entries_are_numbered_and_read_back() {
+        let dir = tempfile::tempdir().unwrap();
+        let mut j = Journal::open(dir.path(), None).unwrap();
+        let lines = j.append(vec![entry("a.psv"), entry("b.psv")]).unwrap();
+        assert_eq!(lines.iter().map(|l| l.seq).collect::<Vec<_>>(), [1, 2]);
+        j.append(vec![entry("c.psv")]).unwrap();
+        drop(j);
+        let j = Journal::open(dir.path(), None).unwrap();
+        assert_eq!(j.last_seq(), 3);
+        let read: Vec<u64> = j
+            .read_from(0)
+            .unwrap()
+            .map(|e| e.unwrap().line.seq)
+            .collect();
+        assert_eq!(read, [1, 2, 3]);
+    }
+
+    #[test]
+    fn a_torn_last_entry_is_cut_and_numbering_goes_on() {
+        let dir = tempfile::tempdir().unwrap();
+        let mut j = Journal::open(dir.path(), None).unwrap();
+        j.append(vec![entry("a.psv")]).unwrap();
+        let good = j.length();
+        drop(j);
+        // Half an entry, as a crash in the middle of a write leaves it.
+        let path = dir.path().join(JOURNAL_FILE);
+        let mut f = OpenOptions::new().append(true).open(&path).unwrap();
+        f.write_all(br#"{"seq":2,"kind":"observ"#).unwrap();
+        drop(f);
+        let mut j = Journal::open(dir.path(), None).unwrap();
+        assert_eq!(j.length(), good);
+        assert_eq!(j.last_seq(), 1);
+        let lines = j.append(vec![entry("b.psv")]).unwrap();
+        assert_eq!(lines[0].seq, 2);
+    }
+
+    #[test]
+    fn damage_before_the_end_is_refused_with_its_line() {
+        let dir = tempfile::tempdir().unwrap();
+        let mut j = Journal::open(dir.path(), None).unwrap();
+        j.append(vec![entry("a.psv")]).unwrap();
+        drop(j);
+        let path = dir.path().join(JOURNAL_FILE);
+        let mut f = OpenOptions::new().append(true).open(&path).unwrap();
+        f.write_all(b"not json\n").unwrap();
+        drop(f);
+        let mut j = Journal::open(dir.path(), None).unwrap();
+        // The damaged line was the last one: cut as torn. Now add a good
+        // entry after a damaged one, which is corruption.
+        j.append(vec![entry("b.psv")]).unwrap();
+        drop(j);
+        let text = std::fs::read_to_string(&path).unwrap();
+        let mut lines: Vec<&str> = text.lines().collect();
+        lines.insert(1, "{\"broken\": true}");
+        std::fs::write(&path, lines.join("\n") + "\n").unwrap();
+        match Journal::open(dir.path(), None) {
+            Err(StoreError::Corrupt { why, .. }) => assert!(why.contains("line 2"), "{why}"),
+            other => panic!("expected corruption, got {:?}", other.map(|j| j.last_seq())),
+        }
+    }
+}

@@ -1,0 +1,262 @@
+//! The store: an fsync'd journal that is the truth, and a sled index
+//! rebuilt from it.
+//!
+//! - [`journal`]: append-only JSON lines, fsync before acknowledging.
+//! - [`index`]: sled trees arranged for reading, each journal entry applied
+//!   in one transaction together with the applied position.
+//! - [`records`]: the entries and values.
+//!
+//! Only [`Store::add_observations`] (the ingest path) writes observations
+//! and only [`Store::add_solution`] (the worker) writes solutions. Both
+//! append to the journal first, then apply to the index; the journal's
+//! tail beyond the index's applied position is replayed at open. The
+//! daemon's stages see the store through the [`Store`] trait, so that a
+//! shared backend for many machines can be added beside this one.
+//!
+//! On disk, under the configured database directory: `journal/journal.jsonl`
+//! and `index/` (sled).
+
+pub mod error;
+pub mod index;
+pub mod journal;
+pub mod records;
+
+use std::path::{Path, PathBuf};
+use std::sync::Mutex;
+
+pub use error::StoreError;
+pub use index::{ObservationsApplied, SCHEMA_VERSION};
+pub use records::{
+    IndexedObservation, JournalEntry, ObjectState, ObservationEntry, Origin, SolutionRecord,
+    SolutionSummary, StoredObservation, Trigger,
+};
+
+use index::Index;
+use journal::Journal;
+
+/// What the daemon's stages need of a store.
+pub trait Store: Send + Sync {
+    /// Journals a batch of observations (fsync), then indexes it.
+    fn add_observations(
+        &self,
+        origin: Origin,
+        observations: Vec<ObservationEntry>,
+    ) -> Result<ObservationsApplied, StoreError>;
+    /// Journals a solution record (fsync), then indexes it. The sequence
+    /// number must be the object's next.
+    fn add_solution(&self, record: SolutionRecord) -> Result<(), StoreError>;
+    /// Whether an observation with this content key is stored.
+    fn has_observation(&self, content_key: &[u8; 32]) -> Result<bool, StoreError>;
+    fn objects(&self) -> Result<Vec<ObjectState>, StoreError>;
+    fn object(&self, name: &str) -> Result<Option<ObjectState>, StoreError>;
+    fn observations(
+        &self,
+        id: &str,
+        after: Option<&[u8]>,
+        limit: usize,
+    ) -> Result<(Vec<IndexedObservation>, Option<Vec<u8>>), StoreError>;
+    fn solutions(
+        &self,
+        id: &str,
+        before: Option<u64>,
+        limit: usize,
+    ) -> Result<Vec<SolutionRecord>, StoreError>;
+    fn solution(&self, id: &str, seq: u64) -> Result<Option<SolutionRecord>, StoreError>;
+    /// The last journal sequence number.
+    fn journal_seq(&self) -> u64;
+    /// Makes what is indexed survive a crash of the process.
+    fn flush(&self) -> Result<(), StoreError>;
+}
+
+/// Observations are read in pages of this many when all are needed.
+const PAGE: usize = 10_000;
+
+/// Every observation of an object, in time order.
+pub fn all_observations(
+    store: &dyn Store,
+    id: &str,
+) -> Result<Vec<IndexedObservation>, StoreError> {
+    let mut out = Vec::new();
+    let mut cursor: Option<Vec<u8>> = None;
+    loop {
+        let (page, next) = store.observations(id, cursor.as_deref(), PAGE)?;
+        out.extend(page);
+        match next {
+            Some(c) => cursor = Some(c),
+            None => return Ok(out),
+        }
+    }
+}
+
+/// The journal and the sled index in one directory.
+pub struct SledStore {
+    journal: Mutex<Journal>,
+    index: Index,
+}
+
+pub fn journal_dir(database: &Path) -> PathBuf {
+    database.join("journal")
+}
+
+pub fn index_dir(database: &Path) -> PathBuf {
+    database.join("index")
+}
+
+impl SledStore {
+    /// Opens the store under `database`, replaying the journal's tail into
+    /// the index.
+    pub fn open(database: &Path) -> Result<Self, StoreError> {
+        let index = Index::open(&index_dir(database))?;
+        let applied = index.applied()?;
+        let journal = Journal::open(&journal_dir(database), applied)?;
+        let store = Self {
+            journal: Mutex::new(journal),
+            index,
+        };
+        let replayed = store.replay(applied.map_or(0, |a| a.0))?;
+        if replayed > 0 {
+            tracing::info!(
+                entries = replayed,
+                "replayed the journal's tail into the index"
+            );
+            store.index.flush()?;
+        }
+        Ok(store)
+    }
+
+    /// Builds a new index from the whole journal, after moving the old
+    /// index (if any) aside to `index.replaced-<unix time>`; returns the
+    /// number of entries applied.
+    pub fn rebuild(database: &Path) -> Result<(Self, usize), StoreError> {
+        let dir = index_dir(database);
+        if dir.exists() {
+            let stamp = std::time::SystemTime::now()
+                .duration_since(std::time::UNIX_EPOCH)
+                .map_or(0, |d| d.as_secs());
+            let aside = database.join(format!("index.replaced-{stamp}"));
+            std::fs::rename(&dir, &aside).map_err(|e| StoreError::io(&dir, e))?;
+            tracing::info!(old = %aside.display(), "moved the old index aside");
+        }
+        let index = Index::open(&dir)?;
+        let journal = Journal::open(&journal_dir(database), None)?;
+        let store = Self {
+            journal: Mutex::new(journal),
+            index,
+        };
+        let n = store.replay(0)?;
+        store.index.flush()?;
+        Ok((store, n))
+    }
+
+    fn replay(&self, from: u64) -> Result<usize, StoreError> {
+        let journal = self.lock()?;
+        let mut n = 0;
+        for item in journal.read_from(from)? {
+            let e = item.map_err(|p| StoreError::Corrupt {
+                what: journal.path().display().to_string(),
+                why: format!("{p:?} while replaying"),
+            })?;
+            self.index.apply(&e.line, e.end_offset)?;
+            n += 1;
+        }
+        Ok(n)
+    }
+
+    fn lock(&self) -> Result<std::sync::MutexGuard<'_, Journal>, StoreError> {
+        self.journal
+            .lock()
+            .map_err(|_| StoreError::Sled("the journal lock is poisoned".into()))
+    }
+
+    /// Appends and applies under the journal lock, so the index applies
+    /// entries in journal order.
+    fn append_and_apply(&self, entry: JournalEntry) -> Result<ObservationsApplied, StoreError> {
+        let mut journal = self.lock()?;
+        let lines = journal.append(vec![entry])?;
+        let end = journal.length();
+        let mut outcome = ObservationsApplied::default();
+        for line in &lines {
+            outcome = self.index.apply(line, end)?;
+        }
+        Ok(outcome)
+    }
+
+    pub fn counts(&self) -> (usize, usize, usize) {
+        self.index.counts()
+    }
+}
+
+impl Store for SledStore {
+    fn add_observations(
+        &self,
+        origin: Origin,
+        observations: Vec<ObservationEntry>,
+    ) -> Result<ObservationsApplied, StoreError> {
+        self.append_and_apply(JournalEntry::Observations {
+            origin,
+            observations,
+        })
+    }
+
+    fn add_solution(&self, record: SolutionRecord) -> Result<(), StoreError> {
+        let expected = self
+            .index
+            .object(&record.object_id)?
+            .map_or(1, |o| o.solutions + 1);
+        if record.seq != expected {
+            return Err(StoreError::Corrupt {
+                what: format!("solution {} of {}", record.seq, record.object_id),
+                why: format!("the next sequence number is {expected}"),
+            });
+        }
+        self.append_and_apply(JournalEntry::Solution {
+            record: Box::new(record),
+        })?;
+        Ok(())
+    }
+
+    fn has_observation(&self, content_key: &[u8; 32]) -> Result<bool, StoreError> {
+        self.index.has_content(content_key)
+    }
+
+    fn objects(&self) -> Result<Vec<ObjectState>, StoreError> {
+        self.index.objects()
+    }
+
+    fn object(&self, name: &str) -> Result<Option<ObjectState>, StoreError> {
+        self.index.object(name)
+    }
+
+    fn observations(
+        &self,
+        id: &str,
+        after: Option<&[u8]>,
+        limit: usize,
+    ) -> Result<(Vec<IndexedObservation>, Option<Vec<u8>>), StoreError> {
+        self.index.observations(id, after, limit)
+    }
+
+    fn solutions(
+        &self,
+        id: &str,
+        before: Option<u64>,
+        limit: usize,
+    ) -> Result<Vec<SolutionRecord>, StoreError> {
+        self.index.solutions(id, before, limit)
+    }
+
+    fn solution(&self, id: &str, seq: u64) -> Result<Option<SolutionRecord>, StoreError> {
+        self.index.solution(id, seq)
+    }
+
+    fn journal_seq(&self) -> u64 {
+        self.lock().map_or(0, |j| j.last_seq())
+    }
+
+    fn flush(&self) -> Result<(), StoreError> {
+        self.index.flush()
+    }
+}
+
+#[cfg(test)]
+mod tests;

@@ -1,0 +1,259 @@
+//! What the store keeps: the journal's entries and the index's values.
+//!
+//! Every type here is plain serde data. Observations are kept as the text
+//! of their fields exactly as read (ADES names), with where they came from,
+//! and are validated again when read back, so the store never holds a
+//! number the readers would not have produced.
+
+use std::collections::BTreeMap;
+use std::sync::Arc;
+
+use serde::{Deserialize, Serialize};
+
+use crate::config::StationList;
+use crate::ingest::{
+    revalidate, BlockContext, ContentKey, DesignationKey, Field, ObjectId, Observation, RecordText,
+    Source,
+};
+
+/// One observation as stored: its fields' text and its origin.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct StoredObservation {
+    /// ADES field name -> text as read.
+    pub fields: BTreeMap<String, String>,
+    /// The file (or API request) it came from, and its line there.
+    pub file: String,
+    pub line: u32,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub submitter: Option<String>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub observatory_code: Option<String>,
+}
+
+impl StoredObservation {
+    pub fn of(o: &Observation) -> Self {
+        Self {
+            fields: o
+                .text
+                .iter()
+                .map(|(f, t)| (f.ades_name().to_string(), t.to_string()))
+                .collect(),
+            file: o.source.file.to_string(),
+            line: o.source.line,
+            submitter: o.context.as_ref().and_then(|c| c.submitter.clone()),
+            observatory_code: o.context.as_ref().and_then(|c| c.observatory_code.clone()),
+        }
+    }
+
+    /// The observation again, validated as when it was read.
+    pub fn observation(&self, stations: &StationList) -> Result<Observation, String> {
+        let mut text = RecordText::with_capacity(128);
+        for (name, value) in &self.fields {
+            let field = Field::from_ades_name(name)
+                .ok_or_else(|| format!("unknown field '{name}' in the store"))?;
+            text.set(field, value);
+        }
+        let context = (self.submitter.is_some() || self.observatory_code.is_some()).then(|| {
+            Arc::new(BlockContext {
+                observatory_code: self.observatory_code.clone(),
+                submitter: self.submitter.clone(),
+            })
+        });
+        let source = Source {
+            file: Arc::from(self.file.as_str()),
+            line: self.line,
+        };
+        revalidate(text, source, context, stations)
+    }
+}
+
+/// An observation as journaled: the record and the keys derived from it
+/// when it was read (so applying the journal never needs to validate).
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct ObservationEntry {
+    /// SHA-256 content key, hex (see [`ContentKey`]).
+    pub content_key: String,
+    /// Designation keys, spelt as the configuration spells them.
+    pub designations: Vec<String>,
+    /// The time in one normal form (sorts as text).
+    pub obs_time_utc: String,
+    pub station: String,
+    pub record: StoredObservation,
+}
+
+impl ObservationEntry {
+    pub fn of(o: &Observation) -> Self {
+        let (content, keys) = keys_of(o);
+        Self {
+            content_key: content.hex(),
+            designations: keys.iter().map(ToString::to_string).collect(),
+            obs_time_utc: o.time.normalized(),
+            station: o.station().to_string(),
+            record: StoredObservation::of(o),
+        }
+    }
+
+    /// The content key as bytes.
+    pub fn content_bytes(&self) -> Result<[u8; 32], String> {
+        let b = self.content_key.as_bytes();
+        if b.len() != 64 {
+            return Err(format!(
+                "content key '{}' is not 64 hex digits",
+                self.content_key
+            ));
+        }
+        let mut out = [0u8; 32];
+        for (i, pair) in b.chunks(2).enumerate() {
+            let text = std::str::from_utf8(pair).map_err(|e| e.to_string())?;
+            out[i] = u8::from_str_radix(text, 16)
+                .map_err(|_| format!("content key '{}' is not hex", self.content_key))?;
+        }
+        Ok(out)
+    }
+
+    /// The designation keys again.
+    pub fn designation_keys(&self) -> Result<Vec<DesignationKey>, String> {
+        self.designations
+            .iter()
+            .map(|t| DesignationKey::parse(t))
+            .collect()
+    }
+}
+
+/// A stored observation with the journal entry that brought it.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct IndexedObservation {
+    pub journal_seq: u64,
+    #[serde(flatten)]
+    pub entry: ObservationEntry,
+}
+
+/// Why a fit was run.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Trigger {
+    NewObservations,
+    Override,
+    Manual,
+}
+
+/// Where a batch of observations came from.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Origin {
+    /// The name the file had in the incoming directory (or "api").
+    pub name: String,
+    /// Its path under the archive, relative to the archive directory.
+    pub archived_as: String,
+    pub received_utc: String,
+}
+
+/// One entry of the journal. The journal is the truth; the index is
+/// rebuilt from it and the archive.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "kind", rename_all = "snake_case")]
+pub enum JournalEntry {
+    /// Observations accepted from one file (only those not already
+    /// stored when it was read).
+    Observations {
+        origin: Origin,
+        observations: Vec<ObservationEntry>,
+    },
+    /// One fit of one object, successful or not.
+    Solution { record: Box<SolutionRecord> },
+}
+
+/// A journal entry with its sequence number.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct JournalLine {
+    pub seq: u64,
+    #[serde(flatten)]
+    pub entry: JournalEntry,
+}
+
+/// The figures of a solution that its list and the object summary show.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SolutionSummary {
+    pub seq: u64,
+    pub created_utc: String,
+    pub trigger: Trigger,
+    pub converged: bool,
+    pub observations: usize,
+    pub used: usize,
+    pub arc_days: Option<f64>,
+    pub recommended: Option<String>,
+    pub e: Option<crate::solve::document::ValueSigma>,
+    pub one_over_a_original_per_au: Option<crate::solve::document::ValueSigma>,
+    pub ng_significance_sigma: Option<f64>,
+    pub rms_arcsec: Option<f64>,
+    pub normalized_rms: Option<f64>,
+    /// Why there is no solution, when the fit failed.
+    pub failure: Option<String>,
+}
+
+/// Every fit of an object, kept for ever under its sequence number.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SolutionRecord {
+    pub object_id: String,
+    /// Per object, from 1, without gaps.
+    pub seq: u64,
+    pub summary: SolutionSummary,
+    /// The observations' journal position the fit saw: every observation
+    /// journaled up to here was in the fit's input.
+    pub inputs_journal_seq: u64,
+    pub duration_s: f64,
+    pub software_version: String,
+    /// SHA-256 of the fit configuration, the ephemeris' identity, the GM
+    /// set and the leap-second table, each as hex.
+    pub identity: BTreeMap<String, String>,
+    /// The fit's whole document (as `perihelix fit --json` prints it);
+    /// absent when the fit failed.
+    pub document: Option<serde_json::Value>,
+}
+
+/// What the index knows of an object.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ObjectState {
+    pub id: String,
+    pub designations: Vec<String>,
+    pub observations: u64,
+    pub first_obs_utc: Option<String>,
+    pub last_obs_utc: Option<String>,
+    /// The latest journal entry that added observations to this object.
+    pub last_obs_journal_seq: u64,
+    pub solutions: u64,
+    pub latest: Option<SolutionSummary>,
+    /// The journal position of the latest solution's inputs.
+    pub latest_inputs_journal_seq: u64,
+    /// Set when this object was merged into another by a designation link.
+    pub merged_into: Option<String>,
+}
+
+impl ObjectState {
+    pub fn new(id: &ObjectId) -> Self {
+        Self {
+            id: id.0.clone(),
+            designations: Vec::new(),
+            observations: 0,
+            first_obs_utc: None,
+            last_obs_utc: None,
+            last_obs_journal_seq: 0,
+            solutions: 0,
+            latest: None,
+            latest_inputs_journal_seq: 0,
+            merged_into: None,
+        }
+    }
+
+    /// Observations arrived since the latest fit saw its inputs.
+    pub fn needs_refit(&self) -> bool {
+        self.merged_into.is_none()
+            && self.observations > 0
+            && self.last_obs_journal_seq > self.latest_inputs_journal_seq
+    }
+}
+
+/// The content key and designations of an observation as the index keys
+/// them.
+pub fn keys_of(o: &Observation) -> (ContentKey, Vec<DesignationKey>) {
+    (ContentKey::of(o), DesignationKey::of(o))
+}

@@ -1,0 +1,163 @@
+use super::*;
+use crate::config::{load_stations, StationList};
+use crate::ingest::read_path;
+
+fn stations() -> StationList {
+    load_stations(&Path::new(env!("CARGO_MANIFEST_DIR")).join("config/stations.toml")).unwrap()
+}
+
+fn fixture_entries() -> Vec<ObservationEntry> {
+    let path = Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("tests/reference/fixtures/synthetic/hyperbolic_outgassing/noisy.psv");
+    let read = read_path(&path, &stations());
+    assert!(read.rejected.is_empty());
+    read.observations.iter().map(ObservationEntry::of).collect()
+}
+
+fn origin(name: &str) -> Origin {
+    Origin {
+        name: name.into(),
+        archived_as: format!("2026-12-03/{name}"),
+        received_utc: "2026-12-03T10:00:00Z".into(),
+    }
+}
+
+fn record(id: &str, seq: u64, inputs: u64) -> SolutionRecord {
+    SolutionRecord {
+        object_id: id.into(),
+        seq,
+        summary: SolutionSummary {
+            seq,
+            created_utc: "2026-12-03T10:00:00Z".into(),
+            trigger: Trigger::NewObservations,
+            converged: false,
+            observations: 0,
+            used: 0,
+            arc_days: None,
+            recommended: None,
+            e: None,
+            one_over_a_original_per_au: None,
+            ng_significance_sigma: None,
+            rms_arcsec: None,
+            normalized_rms: None,
+            failure: Some("test".into()),
+        },
+        inputs_journal_seq: inputs,
+        duration_s: 0.0,
+        software_version: "test".into(),
+        identity: Default::default(),
+        document: None,
+    }
+}
+
+#[test]
+fn observations_are_stored_once_and_found_by_designation() {
+    let dir = tempfile::tempdir().unwrap();
+    let store = SledStore::open(dir.path()).unwrap();
+    let entries = fixture_entries();
+    let n = entries.len();
+    let (first_half, second_half) = entries.split_at(n / 2);
+    let a = store
+        .add_observations(origin("a.psv"), first_half.to_vec())
+        .unwrap();
+    assert_eq!(a.added.values().sum::<usize>(), n / 2);
+    // The whole file again: only the second half is new.
+    let b = store
+        .add_observations(origin("b.psv"), entries.clone())
+        .unwrap();
+    assert_eq!(b.duplicates, n / 2);
+    assert_eq!(b.added.values().sum::<usize>(), n - n / 2);
+    let objects = store.objects().unwrap();
+    assert_eq!(objects.len(), 1);
+    let o = &objects[0];
+    assert_eq!(o.observations as usize, n);
+    assert!(o.needs_refit());
+    // By any designation, bare or spelt out.
+    let designation = second_half[0].designations[0].clone();
+    assert_eq!(store.object(&designation).unwrap().unwrap().id, o.id);
+    // Pages in time order, with no observation twice or missed.
+    let mut seen = Vec::new();
+    let mut cursor = None;
+    loop {
+        let (page, next) = store.observations(&o.id, cursor.as_deref(), 100).unwrap();
+        seen.extend(page.into_iter().map(|p| p.entry.obs_time_utc));
+        match next {
+            Some(c) => cursor = Some(c),
+            None => break,
+        }
+    }
+    assert_eq!(seen.len(), n);
+    assert!(seen.windows(2).all(|w| w[0] <= w[1]));
+    let _ = first_half;
+}
+
+#[test]
+fn solutions_keep_their_sequence_and_survive_reopen_and_rebuild() {
+    let dir = tempfile::tempdir().unwrap();
+    let id = {
+        let store = SledStore::open(dir.path()).unwrap();
+        store
+            .add_observations(origin("a.psv"), fixture_entries())
+            .unwrap();
+        let id = store.objects().unwrap()[0].id.clone();
+        let seq = store.journal_seq();
+        store.add_solution(record(&id, 1, seq)).unwrap();
+        // A gap is refused: history has no holes.
+        assert!(store.add_solution(record(&id, 3, seq)).is_err());
+        store.add_solution(record(&id, 2, seq)).unwrap();
+        assert!(!store.object(&id).unwrap().unwrap().needs_refit());
+        id
+    };
+    let store = SledStore::open(dir.path()).unwrap();
+    let counts = store.counts();
+    assert_eq!(store.solutions(&id, None, 10).unwrap().len(), 2);
+    assert_eq!(
+        store.solutions(&id, None, 10).unwrap()[0].seq,
+        2,
+        "newest first"
+    );
+    assert_eq!(store.solutions(&id, Some(2), 10).unwrap()[0].seq, 1);
+    drop(store);
+    // Without its index, the journal alone gives the same store.
+    std::fs::remove_dir_all(index_dir(dir.path())).unwrap();
+    let (store, entries) = SledStore::rebuild(dir.path()).unwrap();
+    assert_eq!(entries, 3);
+    assert_eq!(store.counts(), counts);
+    assert_eq!(store.solution(&id, 2).unwrap().unwrap().seq, 2);
+}
+
+#[test]
+fn the_index_catches_up_with_the_journal_at_open() {
+    let dir = tempfile::tempdir().unwrap();
+    // A journal entry whose apply never happened (a crash between the
+    // two): written straight to the journal.
+    {
+        let mut j = Journal::open(&journal_dir(dir.path()), None).unwrap();
+        j.append(vec![JournalEntry::Observations {
+            origin: origin("a.psv"),
+            observations: fixture_entries(),
+        }])
+        .unwrap();
+    }
+    let store = SledStore::open(dir.path()).unwrap();
+    assert_eq!(store.objects().unwrap().len(), 1);
+    assert_eq!(store.journal_seq(), 1);
+}
+
+#[test]
+fn a_second_opener_is_told_the_store_is_in_use() {
+    let dir = tempfile::tempdir().unwrap();
+    let _first = SledStore::open(dir.path()).unwrap();
+    match SledStore::open(dir.path()) {
+        Err(e @ StoreError::Locked { .. }) => assert!(e.to_string().contains("in use")),
+        Err(e) => panic!("unexpected error {e}"),
+        Ok(_) => panic!("opened twice"),
+    }
+}
+
+#[test]
+fn stored_observations_validate_again() {
+    let entries = fixture_entries();
+    let o = entries[0].record.observation(&stations()).unwrap();
+    assert_eq!(ObservationEntry::of(&o), entries[0]);
+}
