@@ -11,14 +11,23 @@
 //! - [`solve`]: from observation records to a fitted ladder of models and
 //!   its documents (JSON and text), for the command line and the daemon.
 //! - [`store`]: the daemon's journal (the truth) and its sled index.
+//! - [`watch`]: the incoming directory; taking a file into the store.
+//! - [`worker`]: refit scheduling and the refit job.
+//! - [`api`]: the JSON endpoint.
+//! - [`daemon`]: `perihelix serve`, the stages wired together, shutdown,
+//!   systemd notification and metrics.
 // Constants are written with the digits their sources print (DE440 GM
 // values, integrator coefficients), even where f64 keeps fewer: the text is
 // then checkable against the source.
 #![allow(clippy::excessive_precision)]
 
+pub mod api;
 pub mod astro;
 pub mod config;
+pub mod daemon;
 pub mod fit;
 pub mod ingest;
 pub mod solve;
 pub mod store;
+pub mod watch;
+pub mod worker;

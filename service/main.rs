@@ -120,7 +120,14 @@ enum Command {
         #[arg(long)]
         json: bool,
     },
-    /// Show the history of solutions of an object from the store.
+    /// Rebuild the store's index from its journal (after the index was
+    /// lost or damaged); the old index is moved aside, never deleted.
+    Rebuild {
+        #[arg(long, short, default_value = "/etc/perihelix/config.toml")]
+        config: PathBuf,
+    },
+    /// Show the history of solutions of an object: from the running
+    /// daemon, or from the store when no daemon answers.
     History {
         /// Object designation or internal id.
         object: String,
@@ -170,7 +177,13 @@ fn run(cli: Cli) -> Result<ExitCode> {
             stations,
             json,
         } => ingest(&files, config.as_deref(), stations.as_deref(), json),
-        Command::Serve { .. } => not_yet("serve", "the daemon"),
+        Command::Serve { config } => serve(&config),
+        Command::Rebuild { config } => rebuild(&config),
+        Command::History {
+            object,
+            config,
+            json,
+        } => history(&object, &config, json),
         Command::Fit {
             files,
             config,
@@ -221,9 +234,71 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 json,
             },
         ),
-        Command::History { .. } => not_yet("history", "the solution store"),
         Command::Demo { .. } => not_yet("demo", "the daemon"),
     }
+}
+
+/// Logging for the daemon: RUST_LOG when set, else the configured filter;
+/// plain lines (journald adds its own time stamps) or JSON lines.
+fn init_logging(cfg: &Config) {
+    use tracing_subscriber::EnvFilter;
+    let filter = EnvFilter::try_from_default_env()
+        .or_else(|_| EnvFilter::try_new(&cfg.logging.level))
+        .unwrap_or_else(|_| EnvFilter::new("info"));
+    let builder = tracing_subscriber::fmt()
+        .with_env_filter(filter)
+        .with_ansi(std::io::IsTerminal::is_terminal(&std::io::stderr()))
+        .with_writer(std::io::stderr);
+    if cfg.logging.json {
+        builder.json().init();
+    } else {
+        builder.init();
+    }
+}
+
+fn runtime() -> Result<tokio::runtime::Runtime> {
+    Ok(tokio::runtime::Builder::new_multi_thread()
+        .enable_all()
+        .build()?)
+}
+
+fn serve(config: &Path) -> Result<ExitCode> {
+    let cfg = Config::load(config)?;
+    init_logging(&cfg);
+    runtime()?.block_on(perihelix::daemon::serve(cfg))?;
+    Ok(ExitCode::SUCCESS)
+}
+
+fn rebuild(config: &Path) -> Result<ExitCode> {
+    let cfg = Config::load(config)?;
+    init_logging(&cfg);
+    let (store, entries) = perihelix::store::SledStore::rebuild(&cfg.directories.database)?;
+    let (objects, observations, solutions) = store.counts();
+    println!(
+        "rebuilt the index from {entries} journal entries: {objects} objects, {observations} observations, {solutions} solutions"
+    );
+    Ok(ExitCode::SUCCESS)
+}
+
+fn history(object: &str, config: &Path, json: bool) -> Result<ExitCode> {
+    let cfg = Config::load(config)?;
+    let h = runtime()?.block_on(perihelix::daemon::history::history(&cfg, object))?;
+    if json {
+        println!(
+            "{}",
+            serde_json::to_string_pretty(&serde_json::json!({
+                "object": h.object,
+                "solutions": h.solutions,
+                "source": match h.source {
+                    perihelix::daemon::history::HistorySource::Daemon => "daemon",
+                    perihelix::daemon::history::HistorySource::Store => "store",
+                },
+            }))?
+        );
+    } else {
+        print!("{}", perihelix::daemon::history::table(&h));
+    }
+    Ok(ExitCode::SUCCESS)
 }
 
 /// The configuration (if given, else the embedded defaults) with its
@@ -327,8 +402,12 @@ fn fit(
         .as_deref()
         .map(|text| parse_epoch(text, &cfg))
         .transpose()?;
-    let solved =
-        perihelix::solve::solve_records(&cfg, &name, &object.observations, epoch, options.distant)?;
+    let request = perihelix::solve::SolveRequest {
+        elements_epoch: epoch,
+        distant: options.distant,
+        ..Default::default()
+    };
+    let solved = perihelix::solve::solve_records(&cfg, &name, &object.observations, &request)?;
     for r in &solved.refused {
         eprintln!("not used: {r}");
     }
@@ -398,7 +477,12 @@ fn predict(
     })?;
 
     let (name, object) = read_object(files, &cfg, options.object.as_deref())?;
-    let solved = perihelix::solve::solve_records(&cfg, &name, &object.observations, None, false)?;
+    let solved = perihelix::solve::solve_records(
+        &cfg,
+        &name,
+        &object.observations,
+        &perihelix::solve::SolveRequest::default(),
+    )?;
     for r in &solved.refused {
         eprintln!("not used: {r}");
     }

@@ -37,6 +37,9 @@
 //!   below the recovery threshold come back, and the fit is repeated until
 //!   nothing changes.
 
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::Arc;
+
 use nalgebra::{DMatrix, DVector, Matrix2, Vector2, Vector3};
 use thiserror::Error;
 
@@ -47,6 +50,37 @@ use crate::astro::time::Epoch;
 
 use super::observe::{predict, residual_arcsec, AstrometricObservation, ObserveError, ObserverAt};
 use super::weights::{covariances, WeightError, WeightSettings};
+
+/// A request to stop, shared with whoever may make it (the daemon's
+/// shutdown). A fit checks it between iterations and ends as
+/// [`Termination::Cancelled`]; nothing here waits for anything.
+#[derive(Debug, Clone, Default)]
+pub struct Cancel(Option<Arc<AtomicBool>>);
+
+impl Cancel {
+    /// A flag that `set` on any clone raises for all.
+    pub fn new() -> Self {
+        Self(Some(Arc::new(AtomicBool::new(false))))
+    }
+
+    pub fn set(&self) {
+        if let Some(f) = &self.0 {
+            f.store(true, Ordering::Relaxed);
+        }
+    }
+
+    pub fn is_set(&self) -> bool {
+        self.0.as_ref().is_some_and(|f| f.load(Ordering::Relaxed))
+    }
+}
+
+/// Settings compare by their values; two cancel flags are the same
+/// setting whatever their state.
+impl PartialEq for Cancel {
+    fn eq(&self, _: &Self) -> bool {
+        true
+    }
+}
 
 #[derive(Debug, Clone, PartialEq)]
 pub struct FitSettings {
@@ -72,6 +106,8 @@ pub struct FitSettings {
     pub arc_margin_days: f64,
     pub propagation: PropagationSettings,
     pub weights: WeightSettings,
+    /// Raised to stop the fit at its next iteration.
+    pub cancel: Cancel,
 }
 
 impl Default for FitSettings {
@@ -93,6 +129,7 @@ impl Default for FitSettings {
             arc_margin_days: 1.0,
             propagation: PropagationSettings::default(),
             weights: WeightSettings::default(),
+            cancel: Cancel::default(),
         }
     }
 }
@@ -114,6 +151,8 @@ pub enum Termination {
     },
     /// Rejection and recovery kept changing the used set.
     OutlierCycle,
+    /// Stopped on request (the daemon shutting down) before the end.
+    Cancelled,
 }
 
 impl std::fmt::Display for Termination {
@@ -127,6 +166,7 @@ impl std::fmt::Display for Termination {
                 "singular normal matrix (condition number {condition_number:.3e})"
             ),
             Self::OutlierCycle => write!(f, "outlier rejection did not settle"),
+            Self::Cancelled => write!(f, "cancelled"),
         }
     }
 }
@@ -444,6 +484,9 @@ fn correct(
         }
         if lin.step_sigma < settings.step_tolerance_sigma {
             break Termination::Converged;
+        }
+        if settings.cancel.is_set() {
+            break Termination::Cancelled;
         }
         if iterations >= settings.max_iterations {
             break stalled(lin.step_sigma, settings, || Termination::MaxIterations);

@@ -92,6 +92,8 @@ pub enum SolveError {
     Fit(#[from] FitError),
     #[error("no model of the ladder converged from the {tried} best initial orbits")]
     NoConvergedModel { tried: usize },
+    #[error("cancelled")]
+    Cancelled,
 }
 
 /// What a converged model says beyond its fit.
@@ -200,14 +202,18 @@ pub fn solve(
                 continue;
             }
         };
-        match fit_ladder(
+        let ladder = fit_ladder(
             ephemeris,
             &settings.gravity,
             &observations,
             epoch,
             &start,
             &settings.ladder,
-        ) {
+        );
+        if settings.ladder.fit.cancel.is_set() {
+            return Err(SolveError::Cancelled);
+        }
+        match ladder {
             Ok(ladder) if ladder.models.iter().any(|m| m.converged()) => {
                 solved = Some((orbit.clone(), ladder));
                 break;
@@ -279,12 +285,22 @@ pub fn time_scales(
     })
 }
 
+/// What a caller asks of [`solve_records`] beyond the configuration.
+#[derive(Debug, Clone, Default)]
+pub struct SolveRequest {
+    /// Elements at this epoch (the fit's own when None).
+    pub elements_epoch: Option<Epoch>,
+    /// Compute the original and future barycentric 1/a.
+    pub distant: bool,
+    /// Raised to stop the job at the next fit iteration.
+    pub cancel: crate::fit::lsq::Cancel,
+}
+
 pub fn solve_records(
     config: &crate::config::Config,
     object: &str,
     records: &[crate::ingest::Observation],
-    elements_epoch: Option<Epoch>,
-    distant: bool,
+    request: &SolveRequest,
 ) -> Result<RecordsSolved, SolveError> {
     let scales = time_scales(config)?;
     let (kept, refused) = input::astrometric_all(records, &config.stations, &scales);
@@ -311,8 +327,9 @@ pub fn solve_records(
     };
     let ephemeris = sources::open(&config.ephemeris)?;
     let mut settings = settings::solve_settings(&config.fit, &config.stations)?;
-    settings.elements_epoch = elements_epoch;
-    settings.distant_inverse_a = distant;
+    settings.elements_epoch = request.elements_epoch;
+    settings.distant_inverse_a = request.distant;
+    settings.ladder.fit.cancel = request.cancel.clone();
     let solution = solve(&ephemeris, object, observations, &settings)?;
     let brightness = solution.recommended_fit().and_then(|fit| {
         brightness::brightness(

@@ -32,6 +32,7 @@ pub fn reason_class(m: &ModelFit) -> &'static str {
             Termination::Diverged { .. } => "diverged",
             Termination::Singular { .. } => "singular",
             Termination::OutlierCycle => "outlier cycle",
+            Termination::Cancelled => "cancelled",
         },
         Err(_) => "error",
     }

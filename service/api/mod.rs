@@ -1,0 +1,17 @@
+//! The JSON API: the store read over HTTP, and the few writes (posting
+//! observations, asking for a refit) that go through the same ingest and
+//! queue as everything else.
+//!
+//! - [`routes`]: the handlers and the router.
+//! - [`auth`]: the bearer token writes need.
+//! - [`error`]: errors as JSON with a stable code.
+//!
+//! Every request has a timeout and every body a size limit; the server
+//! binds loopback unless configured otherwise (and then a token is
+//! required by the configuration itself).
+
+pub mod auth;
+pub mod error;
+pub mod routes;
+
+pub use routes::{router, ApiState};

@@ -1,0 +1,464 @@
+//! Routes. Paths take an object by its internal id or any designation
+//! (URL-encoded: `provID%3A2026%20ZA7` or `2026%20ZA7`).
+
+use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
+use std::sync::Arc;
+use std::time::Duration;
+
+use axum::body::Bytes;
+use axum::extract::rejection::BytesRejection;
+use axum::extract::{DefaultBodyLimit, Path, Query, State};
+use axum::http::{HeaderMap, StatusCode};
+use axum::response::{IntoResponse, Response};
+use axum::routing::{get, post};
+use axum::{Json, Router};
+use serde::{Deserialize, Serialize};
+use tower_http::timeout::TimeoutLayer;
+
+use crate::daemon::metrics::Metrics;
+use crate::store::{ObjectState, SolutionSummary, Store, Trigger};
+use crate::watch::take::Taken;
+use crate::watch::{take_one, Intake};
+
+use super::auth::require_token;
+use super::error::ApiError;
+
+/// Largest body accepted (observations posted in one request).
+pub const BODY_LIMIT_BYTES: usize = 8 * 1024 * 1024;
+
+/// No request runs longer than this.
+pub const REQUEST_TIMEOUT: Duration = Duration::from_secs(60);
+
+const DEFAULT_PAGE: usize = 50;
+const MAX_PAGE: usize = 1000;
+
+/// What the handlers share.
+pub struct ApiShared {
+    pub store: Arc<dyn Store>,
+    pub intake: Arc<Intake>,
+    pub metrics: Arc<Metrics>,
+    pub token: Option<String>,
+    /// Posted bodies are written here before they are taken.
+    pub staging: std::path::PathBuf,
+    /// Set once the store is open and the first scan is done.
+    pub ready: AtomicBool,
+    uploads: AtomicU64,
+}
+
+#[derive(Clone)]
+pub struct ApiState(pub Arc<ApiShared>);
+
+impl ApiState {
+    pub fn new(
+        store: Arc<dyn Store>,
+        intake: Arc<Intake>,
+        metrics: Arc<Metrics>,
+        token: Option<String>,
+        staging: std::path::PathBuf,
+    ) -> Self {
+        Self(Arc::new(ApiShared {
+            store,
+            intake,
+            metrics,
+            token,
+            staging,
+            ready: AtomicBool::new(false),
+            uploads: AtomicU64::new(0),
+        }))
+    }
+}
+
+pub fn router(state: ApiState) -> Router {
+    Router::new()
+        .route("/healthz", get(healthz))
+        .route("/readyz", get(readyz))
+        .route("/metrics", get(metrics))
+        .route("/v1/objects", get(objects))
+        .route("/v1/objects/{id}", get(object))
+        .route("/v1/objects/{id}/solutions", get(solutions))
+        .route("/v1/objects/{id}/solutions/latest", get(latest_solution))
+        .route("/v1/objects/{id}/solutions/{seq}", get(solution))
+        .route("/v1/objects/{id}/observations", get(observations))
+        .route("/v1/objects/{id}/refit", post(refit))
+        .route("/v1/observations", post(post_observations))
+        .fallback(|| async { ApiError::not_found("no such route") })
+        .layer(DefaultBodyLimit::max(BODY_LIMIT_BYTES))
+        .layer(TimeoutLayer::with_status_code(
+            StatusCode::REQUEST_TIMEOUT,
+            REQUEST_TIMEOUT,
+        ))
+        .with_state(state)
+}
+
+async fn healthz() -> Json<serde_json::Value> {
+    Json(serde_json::json!({ "status": "ok" }))
+}
+
+async fn readyz(State(s): State<ApiState>) -> Response {
+    if s.0.ready.load(Ordering::Relaxed) {
+        Json(serde_json::json!({ "status": "ready" })).into_response()
+    } else {
+        ApiError::new(
+            StatusCode::SERVICE_UNAVAILABLE,
+            "starting",
+            "the first scan of the incoming directory is not done yet",
+        )
+        .into_response()
+    }
+}
+
+async fn metrics(State(s): State<ApiState>) -> Response {
+    (
+        [(
+            axum::http::header::CONTENT_TYPE,
+            "text/plain; version=0.0.4; charset=utf-8",
+        )],
+        s.0.metrics.render(),
+    )
+        .into_response()
+}
+
+/// Runs a store read off the executor (sled reads can touch the disk).
+async fn blocking<T: Send + 'static>(
+    s: &ApiState,
+    f: impl FnOnce(&dyn Store) -> Result<T, crate::store::StoreError> + Send + 'static,
+) -> Result<T, ApiError> {
+    let store = s.0.store.clone();
+    tokio::task::spawn_blocking(move || f(store.as_ref()))
+        .await
+        .map_err(|e| {
+            ApiError::new(
+                StatusCode::INTERNAL_SERVER_ERROR,
+                "internal",
+                format!("a store read failed: {e}"),
+            )
+        })?
+        .map_err(ApiError::from)
+}
+
+/// An object name from a path: any printable text of sensible length.
+fn valid_name(name: &str) -> Result<(), ApiError> {
+    if name.is_empty() || name.len() > 200 || name.chars().any(char::is_control) {
+        return Err(ApiError::bad_request(
+            "bad_id",
+            "an object is named by its id or a designation (1 to 200 printable characters)",
+        ));
+    }
+    Ok(())
+}
+
+async fn find_object(s: &ApiState, name: String) -> Result<ObjectState, ApiError> {
+    valid_name(&name)?;
+    let shown = name.clone();
+    blocking(s, move |store| store.object(&name))
+        .await?
+        .ok_or_else(|| ApiError::not_found(format!("no object '{shown}'")))
+}
+
+#[derive(Serialize)]
+struct ObjectList {
+    objects: Vec<ObjectState>,
+}
+
+async fn objects(State(s): State<ApiState>) -> Result<Json<ObjectList>, ApiError> {
+    let objects = blocking(&s, |store| store.objects()).await?;
+    Ok(Json(ObjectList { objects }))
+}
+
+async fn object(
+    State(s): State<ApiState>,
+    Path(id): Path<String>,
+) -> Result<Json<ObjectState>, ApiError> {
+    Ok(Json(find_object(&s, id).await?))
+}
+
+#[derive(Deserialize)]
+struct Page {
+    cursor: Option<String>,
+    limit: Option<usize>,
+    /// Solutions created at or after this (ISO 8601 UTC, any precision).
+    since: Option<String>,
+    /// ...and before this.
+    until: Option<String>,
+    /// Only solutions whose recommended model has this name.
+    model: Option<String>,
+}
+
+fn page_limit(limit: Option<usize>) -> Result<usize, ApiError> {
+    match limit {
+        None => Ok(DEFAULT_PAGE),
+        Some(n) if (1..=MAX_PAGE).contains(&n) => Ok(n),
+        Some(n) => Err(ApiError::bad_request(
+            "bad_limit",
+            format!("limit {n} is outside 1..={MAX_PAGE}"),
+        )),
+    }
+}
+
+#[derive(Serialize)]
+struct SolutionPage {
+    object_id: String,
+    solutions: Vec<SolutionSummary>,
+    /// Pass as `cursor` for the next (older) page; absent on the last.
+    next_cursor: Option<String>,
+}
+
+async fn solutions(
+    State(s): State<ApiState>,
+    Path(id): Path<String>,
+    Query(page): Query<Page>,
+) -> Result<Json<SolutionPage>, ApiError> {
+    let limit = page_limit(page.limit)?;
+    let before = match &page.cursor {
+        None => None,
+        Some(c) => Some(c.parse::<u64>().map_err(|_| {
+            ApiError::bad_request("bad_cursor", format!("'{c}' is not a cursor of this list"))
+        })?),
+    };
+    let object = find_object(&s, id).await?;
+    let oid = object.id.clone();
+    let (since, until, model) = (page.since, page.until, page.model);
+    // Newest first, "before sequence number N" as the cursor: solutions
+    // added while a client pages never shift the pages it has not read.
+    let (list, next) = blocking(&s, move |store| {
+        let mut out = Vec::new();
+        let mut before = before;
+        loop {
+            let batch = store.solutions(&oid, before, MAX_PAGE)?;
+            let exhausted = batch.len() < MAX_PAGE;
+            for r in batch {
+                before = Some(r.seq);
+                let t = r.summary.created_utc.as_str();
+                let keep = since.as_deref().is_none_or(|x| t >= x)
+                    && until.as_deref().is_none_or(|x| t < x)
+                    && model
+                        .as_deref()
+                        .is_none_or(|m| r.summary.recommended.as_deref() == Some(m));
+                if keep {
+                    out.push(r.summary);
+                    if out.len() == limit {
+                        let more = before.is_some_and(|b| b > 1);
+                        return Ok((out, more.then(|| b_to_string(before))));
+                    }
+                }
+            }
+            if exhausted {
+                return Ok((out, None));
+            }
+        }
+    })
+    .await?;
+    Ok(Json(SolutionPage {
+        object_id: object.id,
+        solutions: list,
+        next_cursor: next,
+    }))
+}
+
+fn b_to_string(before: Option<u64>) -> String {
+    before.map(|b| b.to_string()).unwrap_or_default()
+}
+
+async fn latest_solution(
+    State(s): State<ApiState>,
+    Path(id): Path<String>,
+) -> Result<Json<crate::store::SolutionRecord>, ApiError> {
+    let object = find_object(&s, id).await?;
+    let oid = object.id.clone();
+    let latest = blocking(&s, move |store| store.solutions(&oid, None, 1)).await?;
+    latest
+        .into_iter()
+        .next()
+        .map(Json)
+        .ok_or_else(|| ApiError::not_found(format!("object {} has no solution yet", object.id)))
+}
+
+async fn solution(
+    State(s): State<ApiState>,
+    Path((id, seq)): Path<(String, String)>,
+) -> Result<Json<crate::store::SolutionRecord>, ApiError> {
+    let seq: u64 = seq.parse().map_err(|_| {
+        ApiError::bad_request("bad_sequence", format!("'{seq}' is not a solution number"))
+    })?;
+    let object = find_object(&s, id).await?;
+    let oid = object.id.clone();
+    blocking(&s, move |store| store.solution(&oid, seq))
+        .await?
+        .map(Json)
+        .ok_or_else(|| ApiError::not_found(format!("object {} has no solution {seq}", object.id)))
+}
+
+#[derive(Serialize)]
+struct ObservationPage {
+    object_id: String,
+    observations: Vec<crate::store::IndexedObservation>,
+    next_cursor: Option<String>,
+}
+
+fn to_hex(b: &[u8]) -> String {
+    b.iter().map(|x| format!("{x:02x}")).collect()
+}
+
+fn from_hex(s: &str) -> Option<Vec<u8>> {
+    if !s.len().is_multiple_of(2) || s.len() > 512 {
+        return None;
+    }
+    (0..s.len())
+        .step_by(2)
+        .map(|i| u8::from_str_radix(s.get(i..i + 2)?, 16).ok())
+        .collect()
+}
+
+async fn observations(
+    State(s): State<ApiState>,
+    Path(id): Path<String>,
+    Query(page): Query<Page>,
+) -> Result<Json<ObservationPage>, ApiError> {
+    let limit = page_limit(page.limit)?;
+    let after = match &page.cursor {
+        None => None,
+        Some(c) => Some(from_hex(c).ok_or_else(|| {
+            ApiError::bad_request("bad_cursor", format!("'{c}' is not a cursor of this list"))
+        })?),
+    };
+    let object = find_object(&s, id).await?;
+    let oid = object.id.clone();
+    let (list, next) = blocking(&s, move |store| {
+        store.observations(&oid, after.as_deref(), limit)
+    })
+    .await?;
+    Ok(Json(ObservationPage {
+        object_id: object.id,
+        observations: list,
+        next_cursor: next.map(|k| to_hex(&k)),
+    }))
+}
+
+async fn refit(
+    State(s): State<ApiState>,
+    headers: HeaderMap,
+    Path(id): Path<String>,
+) -> Result<Response, ApiError> {
+    require_token(s.0.token.as_deref(), &headers)?;
+    let object = find_object(&s, id).await?;
+    s.0.intake.queue.mark(&object.id, Trigger::Manual);
+    Ok((
+        StatusCode::ACCEPTED,
+        Json(serde_json::json!({ "queued": object.id, "trigger": "manual" })),
+    )
+        .into_response())
+}
+
+/// The file extension a posted body is kept under, from its content type
+/// (else the readers tell the format by its first character).
+fn extension(headers: &HeaderMap) -> &'static str {
+    let ct = headers
+        .get(axum::http::header::CONTENT_TYPE)
+        .and_then(|v| v.to_str().ok())
+        .unwrap_or("");
+    if ct.contains("xml") {
+        "xml"
+    } else if ct.contains("json") {
+        "jsonl"
+    } else if ct.contains("psv") {
+        "psv"
+    } else {
+        "txt"
+    }
+}
+
+async fn post_observations(
+    State(s): State<ApiState>,
+    headers: HeaderMap,
+    body: Result<Bytes, BytesRejection>,
+) -> Result<Response, ApiError> {
+    require_token(s.0.token.as_deref(), &headers)?;
+    let body = body.map_err(|r| ApiError::new(r.status(), "bad_body", r.body_text()))?;
+    if body.is_empty() {
+        return Err(ApiError::bad_request(
+            "empty_body",
+            "the request carries no observations",
+        ));
+    }
+    // The body becomes a file like any other, so the archive holds every
+    // input and the same path takes it.
+    let n = s.0.uploads.fetch_add(1, Ordering::Relaxed);
+    let (stamp, _) = crate::watch::clock::now_utc();
+    let stamp: String = stamp.chars().filter(char::is_ascii_digit).collect();
+    let name = format!(
+        "api-{stamp}-{}-{n}.{}",
+        std::process::id(),
+        extension(&headers)
+    );
+    let path = s.0.staging.join(&name);
+    let staging = s.0.staging.clone();
+    let write_path = path.clone();
+    tokio::task::spawn_blocking(move || {
+        std::fs::create_dir_all(&staging)?;
+        std::fs::write(&write_path, &body)?;
+        std::fs::File::open(&write_path)?.sync_all()
+    })
+    .await
+    .map_err(|e| ApiError::new(StatusCode::INTERNAL_SERVER_ERROR, "internal", e.to_string()))?
+    .map_err(|e| {
+        ApiError::new(
+            StatusCode::INSUFFICIENT_STORAGE,
+            "cannot_stage",
+            format!("the body could not be written: {e}"),
+        )
+    })?;
+    match take_one(&s.0.intake, path).await {
+        Ok(Taken::Archived {
+            to,
+            added,
+            duplicates,
+            lines_rejected,
+            errors,
+        }) => {
+            let rejections = match &errors {
+                Some(p) => std::fs::read(p)
+                    .ok()
+                    .and_then(|b| serde_json::from_slice::<serde_json::Value>(&b).ok())
+                    .map(|v| v["rejections"].clone()),
+                None => None,
+            };
+            Ok((
+                StatusCode::CREATED,
+                Json(serde_json::json!({
+                    "archived_as": to.display().to_string(),
+                    "accepted": added,
+                    "duplicates": duplicates,
+                    "lines_rejected": lines_rejected,
+                    "rejections": rejections.unwrap_or(serde_json::Value::Array(Vec::new())),
+                })),
+            )
+                .into_response())
+        }
+        Ok(Taken::Rejected { errors, reason, .. }) => {
+            let details = std::fs::read(&errors)
+                .ok()
+                .and_then(|b| serde_json::from_slice::<serde_json::Value>(&b).ok())
+                .unwrap_or_default();
+            Err(ApiError::new(
+                StatusCode::UNPROCESSABLE_ENTITY,
+                "no_usable_observation",
+                reason,
+            )
+            .with_details(details))
+        }
+        Ok(Taken::Gone) => Err(ApiError::new(
+            StatusCode::INTERNAL_SERVER_ERROR,
+            "internal",
+            "the staged body disappeared",
+        )),
+        Err(e) => Err(ApiError::new(
+            if e.is_disk_full() {
+                StatusCode::INSUFFICIENT_STORAGE
+            } else {
+                StatusCode::SERVICE_UNAVAILABLE
+            },
+            "not_stored",
+            e.to_string(),
+        )),
+    }
+}

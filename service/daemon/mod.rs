@@ -1,0 +1,194 @@
+//! `perihelix serve`: the stages wired together, and their life cycle.
+//!
+//! ```text
+//! incoming dir --notify/scan--> watch (take files) --> store <-- api
+//!                                   | mark dirty          ^
+//!                                   v                     |
+//!                               worker (debounce, fit on blocking threads)
+//! ```
+//!
+//! One shutdown signal ([`shutdown`]) reaches every task: on SIGTERM or
+//! ctrl-c the intake stops between files, running fits are cancelled at
+//! their next iteration, the HTTP server stops accepting and gives open
+//! requests a bounded time, the store is flushed, and the process exits 0.
+//! Readiness is told to systemd once the store is open and the first scan
+//! has listed the incoming directory; the watchdog is fed only while the
+//! intake and scheduler loops keep turning.
+
+pub mod history;
+pub mod metrics;
+pub mod shutdown;
+pub mod systemd;
+
+use std::sync::atomic::Ordering;
+use std::sync::Arc;
+use std::time::Duration;
+
+use thiserror::Error;
+use tokio::sync::oneshot;
+
+use crate::api::{router, ApiState};
+use crate::config::Config;
+use crate::store::{SledStore, Store, StoreError};
+use crate::watch::Intake;
+use crate::worker::job::{identity, JobContext};
+
+use metrics::Metrics;
+
+/// Open HTTP connections get this long after the stop signal.
+const HTTP_GRACE: Duration = Duration::from_secs(5);
+
+#[derive(Debug, Error)]
+pub enum DaemonError {
+    #[error("{0}")]
+    Store(#[from] StoreError),
+    #[error("cannot create {path}: {source}")]
+    Directory {
+        path: std::path::PathBuf,
+        source: std::io::Error,
+    },
+    #[error("cannot listen on {addr}: {source}")]
+    Bind {
+        addr: std::net::SocketAddr,
+        source: std::io::Error,
+    },
+    #[error("the HTTP server failed: {0}")]
+    Serve(std::io::Error),
+}
+
+/// Waits for SIGTERM or ctrl-c.
+async fn stop_signal() {
+    let ctrl_c = async {
+        let _ = tokio::signal::ctrl_c().await;
+    };
+    #[cfg(unix)]
+    let term = async {
+        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
+            Ok(mut s) => {
+                s.recv().await;
+            }
+            Err(e) => {
+                tracing::error!("cannot listen for SIGTERM: {e}");
+                std::future::pending::<()>().await;
+            }
+        }
+    };
+    #[cfg(not(unix))]
+    let term = std::future::pending::<()>();
+    tokio::select! {
+        _ = ctrl_c => {},
+        _ = term => {},
+    }
+}
+
+/// Runs the daemon until a stop signal; returns once everything stopped.
+pub async fn serve(config: Config) -> Result<(), DaemonError> {
+    let config = Arc::new(config);
+    let dirs = &config.directories;
+    for d in [
+        &dirs.incoming,
+        &dirs.archive,
+        &dirs.rejected,
+        &dirs.database,
+    ] {
+        std::fs::create_dir_all(d).map_err(|source| DaemonError::Directory {
+            path: d.clone(),
+            source,
+        })?;
+    }
+    let database = dirs.database.clone();
+    let store: Arc<dyn Store> = Arc::new(
+        tokio::task::spawn_blocking(move || SledStore::open(&database))
+            .await
+            .map_err(|e| StoreError::Sled(format!("opening the store: {e}")))??,
+    );
+    let metrics = Arc::new(Metrics::new());
+    let (trigger, shutdown) = shutdown::channel();
+    let (queue, requests) = crate::worker::queue();
+    let job = Arc::new(JobContext {
+        config: config.clone(),
+        store: store.clone(),
+        identity: identity(&config),
+    });
+    let intake = Arc::new(Intake {
+        config: config.clone(),
+        store: store.clone(),
+        queue,
+        metrics: metrics.clone(),
+    });
+    let api = ApiState::new(
+        store.clone(),
+        intake.clone(),
+        metrics.clone(),
+        config.api.token.clone(),
+        config.directories.database.join("staging"),
+    );
+
+    let listener = tokio::net::TcpListener::bind(config.api.bind)
+        .await
+        .map_err(|source| DaemonError::Bind {
+            addr: config.api.bind,
+            source,
+        })?;
+    let bound = listener.local_addr().map_err(DaemonError::Serve)?;
+    tracing::info!(address = %bound, "API listening");
+
+    let scheduler = tokio::spawn(crate::worker::run(
+        job,
+        requests,
+        metrics.clone(),
+        shutdown.clone(),
+    ));
+    let (ready_tx, ready_rx) = oneshot::channel();
+    let intake_task = {
+        let shutdown = shutdown.clone();
+        let intake = Intake {
+            config: intake.config.clone(),
+            store: intake.store.clone(),
+            queue: intake.queue.clone(),
+            metrics: intake.metrics.clone(),
+        };
+        tokio::spawn(crate::watch::run(intake, ready_tx, shutdown))
+    };
+    let http = {
+        let mut shutdown = shutdown.clone();
+        let app = router(api.clone());
+        tokio::spawn(async move {
+            axum::serve(listener, app)
+                .with_graceful_shutdown(async move { shutdown.wait().await })
+                .await
+        })
+    };
+    let watchdog = tokio::spawn(systemd::watchdog(metrics.clone(), shutdown.clone()));
+
+    // Ready: the store is open and the first scan has listed the files.
+    if ready_rx.await.is_ok() {
+        api.0.ready.store(true, Ordering::Relaxed);
+        systemd::ready(bound);
+        tracing::info!(incoming = %config.directories.incoming.display(), "ready");
+    }
+
+    let mut waiting = shutdown.clone();
+    tokio::select! {
+        _ = stop_signal() => tracing::info!("stop signal received; stopping"),
+        _ = waiting.wait() => {},
+    }
+    systemd::stopping();
+    trigger.trigger();
+
+    let _ = intake_task.await;
+    let _ = scheduler.await;
+    match tokio::time::timeout(HTTP_GRACE, http).await {
+        Ok(Ok(Ok(()))) => {}
+        Ok(Ok(Err(e))) => tracing::error!("the HTTP server: {e}"),
+        Ok(Err(e)) => tracing::error!("the HTTP task: {e}"),
+        Err(_) => tracing::warn!("open HTTP connections did not close in time; leaving them"),
+    }
+    watchdog.abort();
+    let flush_store = store.clone();
+    tokio::task::spawn_blocking(move || flush_store.flush())
+        .await
+        .map_err(|e| StoreError::Sled(format!("flushing the store: {e}")))??;
+    tracing::info!("stopped");
+    Ok(())
+}
