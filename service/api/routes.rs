@@ -82,12 +82,36 @@ pub fn router(state: ApiState) -> Router {
         .route("/v1/objects/{id}/refit", post(refit))
         .route("/v1/observations", post(post_observations))
         .fallback(|| async { ApiError::not_found("no such route") })
+        .layer(axum::middleware::from_fn(refuse_declared_oversize))
         .layer(DefaultBodyLimit::max(BODY_LIMIT_BYTES))
         .layer(TimeoutLayer::with_status_code(
             StatusCode::REQUEST_TIMEOUT,
             REQUEST_TIMEOUT,
         ))
         .with_state(state)
+}
+
+/// A body whose declared length is over the limit is refused before a
+/// byte of it is read (a body without a declared length is cut at the
+/// limit as it is read, and refused the same way).
+async fn refuse_declared_oversize(
+    request: axum::extract::Request,
+    next: axum::middleware::Next,
+) -> Response {
+    let declared = request
+        .headers()
+        .get(axum::http::header::CONTENT_LENGTH)
+        .and_then(|v| v.to_str().ok())
+        .and_then(|v| v.parse::<u64>().ok());
+    match declared {
+        Some(n) if n > BODY_LIMIT_BYTES as u64 => ApiError::new(
+            StatusCode::PAYLOAD_TOO_LARGE,
+            "body_too_large",
+            format!("the body declares {n} bytes; at most {BODY_LIMIT_BYTES} are accepted"),
+        )
+        .into_response(),
+        _ => next.run(request).await,
+    }
 }
 
 async fn healthz() -> Json<serde_json::Value> {

@@ -4,6 +4,7 @@
 //! jplephem 2.24 and pyerfa 2.0.1.5; see tests/reference/README.md).
 #![allow(dead_code)]
 
+pub mod daemon;
 pub mod stress;
 
 use std::path::{Path, PathBuf};

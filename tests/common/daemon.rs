@@ -1,0 +1,354 @@
+//! Running the real `perihelix serve` binary in a test: a configuration in
+//! a temporary directory (API on a loopback port the kernel picks),
+//! readiness read from a NOTIFY_SOCKET as systemd would, a real HTTP client,
+//! SIGTERM or SIGKILL to stop it. Every wait is a bounded poll.
+
+use std::net::SocketAddr;
+use std::os::unix::net::UnixDatagram;
+use std::path::{Path, PathBuf};
+use std::process::{Child, Command, Stdio};
+use std::time::{Duration, Instant};
+
+use serde_json::Value;
+
+use super::repo;
+
+/// Waits for `f` to give a value, polling every `every`, for at most
+/// `limit`; panics with `what` when it never does.
+pub fn poll_until<T>(
+    what: &str,
+    limit: Duration,
+    every: Duration,
+    mut f: impl FnMut() -> Option<T>,
+) -> T {
+    let deadline = Instant::now() + limit;
+    loop {
+        if let Some(v) = f() {
+            return v;
+        }
+        assert!(
+            Instant::now() < deadline,
+            "timed out after {limit:?} waiting for {what}"
+        );
+        std::thread::sleep(every);
+    }
+}
+
+/// A daemon's directories and configuration.
+pub struct DaemonDir {
+    pub root: tempfile::TempDir,
+    pub config: PathBuf,
+}
+
+impl DaemonDir {
+    /// A configuration with the shipped stations, the embedded ephemeris,
+    /// the API on a free loopback port, and `extra` TOML appended (it may
+    /// set [refit] and the like).
+    pub fn new(refit: &str) -> Self {
+        let root = tempfile::tempdir().expect("a temporary directory");
+        let config = root.path().join("config.toml");
+        let text = format!(
+            "[directories]\nincoming = \"incoming\"\narchive = \"archive\"\nrejected = \"rejected\"\ndatabase = \"db\"\n\
+             [stations]\nfile = \"{}\"\n[api]\nbind = \"127.0.0.1:0\"\n[refit]\n{refit}\n",
+            repo().join("config/stations.toml").display()
+        );
+        std::fs::write(&config, text).expect("the configuration is written");
+        for d in ["incoming", "archive", "rejected"] {
+            std::fs::create_dir_all(root.path().join(d)).expect("a directory");
+        }
+        Self { root, config }
+    }
+
+    pub fn path(&self, name: &str) -> PathBuf {
+        self.root.path().join(name)
+    }
+
+    /// Writes a file into the incoming directory the way a careful
+    /// producer does: under a temporary name, then renamed in.
+    pub fn drop_file(&self, name: &str, text: &str) {
+        let part = self.path("incoming").join(format!("{name}.part"));
+        std::fs::write(&part, text).expect("the file is written");
+        std::fs::rename(&part, self.path("incoming").join(name)).expect("the file is renamed in");
+    }
+
+    /// Every file under a directory, recursively (names only).
+    pub fn files_under(&self, dir: &str) -> Vec<PathBuf> {
+        fn walk(p: &Path, out: &mut Vec<PathBuf>) {
+            if let Ok(entries) = std::fs::read_dir(p) {
+                for e in entries.flatten() {
+                    let path = e.path();
+                    if path.is_dir() {
+                        walk(&path, out);
+                    } else {
+                        out.push(path);
+                    }
+                }
+            }
+        }
+        let mut out = Vec::new();
+        walk(&self.path(dir), &mut out);
+        out.sort();
+        out
+    }
+}
+
+/// A running daemon.
+pub struct Running {
+    pub child: Child,
+    pub addr: SocketAddr,
+    _socket_dir: tempfile::TempDir,
+    runtime: tokio::runtime::Runtime,
+    client: reqwest::Client,
+    pub log: PathBuf,
+}
+
+/// The API token the tests' daemons are given through the environment.
+pub const TOKEN: &str = "test-token-7f3a";
+
+impl Running {
+    /// Starts `perihelix serve` and waits (at most `limit`) for READY=1.
+    pub fn start(dir: &DaemonDir, limit: Duration) -> Self {
+        let socket_dir = tempfile::tempdir().expect("a socket directory");
+        let socket_path = socket_dir.path().join("notify.sock");
+        let socket = UnixDatagram::bind(&socket_path).expect("the notify socket binds");
+        socket
+            .set_read_timeout(Some(Duration::from_millis(200)))
+            .expect("a read timeout");
+        let log = unique(dir.path("daemon.log"));
+        let child = Command::new(env!("CARGO_BIN_EXE_perihelix"))
+            .arg("serve")
+            .arg("--config")
+            .arg(&dir.config)
+            .env("NOTIFY_SOCKET", &socket_path)
+            .env("PERIHELIX_API_TOKEN", TOKEN)
+            .env("RUST_LOG", "info")
+            .stdout(Stdio::null())
+            .stderr(std::fs::File::create(&log).expect("a log file"))
+            .spawn()
+            .expect("the daemon starts");
+        let mut child = child;
+        let mut status = None;
+        let deadline = Instant::now() + limit;
+        let mut buf = [0u8; 4096];
+        loop {
+            if let Ok(Some(exit)) = child.try_wait() {
+                panic!(
+                    "the daemon exited with {exit} before it was ready:\n{}",
+                    std::fs::read_to_string(&log).unwrap_or_default()
+                );
+            }
+            assert!(
+                Instant::now() < deadline,
+                "the daemon was not ready in {limit:?}"
+            );
+            if let Ok(n) = socket.recv(&mut buf) {
+                let text = String::from_utf8_lossy(&buf[..n]).to_string();
+                let mut ready = false;
+                for line in text.lines() {
+                    if line == "READY=1" {
+                        ready = true;
+                    }
+                    if let Some(s) = line.strip_prefix("STATUS=serving on ") {
+                        status = s.parse::<SocketAddr>().ok();
+                    }
+                }
+                if ready {
+                    break;
+                }
+            }
+        }
+        let addr = status.expect("the readiness message names the address");
+        let runtime = tokio::runtime::Builder::new_current_thread()
+            .enable_all()
+            .build()
+            .expect("a runtime for the HTTP client");
+        let client = reqwest::Client::builder()
+            .timeout(Duration::from_secs(30))
+            .build()
+            .expect("an HTTP client");
+        Self {
+            child,
+            addr,
+            _socket_dir: socket_dir,
+            runtime,
+            client,
+            log,
+        }
+    }
+
+    pub fn url(&self, path: &str) -> String {
+        format!("http://{}{path}", self.addr)
+    }
+
+    /// GET; the status and the body as JSON (Null when not JSON).
+    pub fn get(&self, path: &str) -> (u16, Value) {
+        let url = self.url(path);
+        self.runtime.block_on(async {
+            let r = self
+                .client
+                .get(&url)
+                .send()
+                .await
+                .expect("the daemon answers");
+            let status = r.status().as_u16();
+            let text = r.text().await.unwrap_or_default();
+            (status, serde_json::from_str(&text).unwrap_or(Value::Null))
+        })
+    }
+
+    /// GET; the body as text.
+    pub fn get_text(&self, path: &str) -> String {
+        let url = self.url(path);
+        self.runtime.block_on(async {
+            let r = self
+                .client
+                .get(&url)
+                .send()
+                .await
+                .expect("the daemon answers");
+            r.text().await.unwrap_or_default()
+        })
+    }
+
+    /// POST with an optional bearer token.
+    pub fn post(
+        &self,
+        path: &str,
+        token: Option<&str>,
+        content_type: &str,
+        body: Vec<u8>,
+    ) -> (u16, Value) {
+        let url = self.url(path);
+        self.runtime.block_on(async {
+            let mut req = self
+                .client
+                .post(&url)
+                .header("content-type", content_type)
+                .body(body);
+            if let Some(t) = token {
+                req = req.bearer_auth(t);
+            }
+            let r = req.send().await.expect("the daemon answers");
+            let status = r.status().as_u16();
+            let text = r.text().await.unwrap_or_default();
+            (status, serde_json::from_str(&text).unwrap_or(Value::Null))
+        })
+    }
+
+    /// The object's solutions (newest first), all pages.
+    pub fn solutions(&self, object: &str) -> Vec<Value> {
+        let mut out = Vec::new();
+        let mut cursor: Option<String> = None;
+        loop {
+            let mut path = format!("/v1/objects/{}/solutions?limit=1000", encode(object));
+            if let Some(c) = &cursor {
+                path.push_str(&format!("&cursor={c}"));
+            }
+            let (status, page) = self.get(&path);
+            if status != 200 {
+                return out;
+            }
+            out.extend(page["solutions"].as_array().cloned().unwrap_or_default());
+            match page["next_cursor"].as_str() {
+                Some(c) => cursor = Some(c.to_string()),
+                None => return out,
+            }
+        }
+    }
+
+    /// SIGTERM, then the exit status (bounded wait).
+    pub fn stop(mut self, limit: Duration) -> std::process::ExitStatus {
+        let _ = Command::new("kill")
+            .arg("-TERM")
+            .arg(self.child.id().to_string())
+            .status();
+        let deadline = Instant::now() + limit;
+        loop {
+            if let Ok(Some(s)) = self.child.try_wait() {
+                return s;
+            }
+            if Instant::now() > deadline {
+                let _ = self.child.kill();
+                panic!(
+                    "the daemon did not stop within {limit:?} of SIGTERM:\n{}",
+                    std::fs::read_to_string(&self.log).unwrap_or_default()
+                );
+            }
+            std::thread::sleep(Duration::from_millis(50));
+        }
+    }
+
+    /// SIGKILL: no chance to flush or say goodbye.
+    pub fn kill9(mut self) {
+        let _ = self.child.kill();
+        let _ = self.child.wait();
+    }
+
+    pub fn log_text(&self) -> String {
+        std::fs::read_to_string(&self.log).unwrap_or_default()
+    }
+}
+
+impl Drop for Running {
+    fn drop(&mut self) {
+        let _ = self.child.kill();
+        let _ = self.child.wait();
+    }
+}
+
+fn unique(p: PathBuf) -> PathBuf {
+    let mut n = 0;
+    loop {
+        let candidate = if n == 0 {
+            p.clone()
+        } else {
+            p.with_extension(format!("{n}.log"))
+        };
+        if !candidate.exists() {
+            return candidate;
+        }
+        n += 1;
+    }
+}
+
+/// Percent-encodes a path segment.
+pub fn encode(s: &str) -> String {
+    s.bytes()
+        .map(|b| match b {
+            b'A'..=b'Z' | b'a'..=b'z' | b'0'..=b'9' | b'-' | b'_' | b'.' | b'~' => {
+                (b as char).to_string()
+            }
+            _ => format!("%{b:02X}"),
+        })
+        .collect()
+}
+
+/// The header lines of a PSV file (everything before the first data row)
+/// and its data rows grouped by UTC night (the date of obsTime).
+pub fn psv_nights(path: &Path) -> (String, Vec<(String, Vec<String>)>) {
+    let text = std::fs::read_to_string(path).expect("the fixture reads");
+    let mut header = String::new();
+    let mut nights: Vec<(String, Vec<String>)> = Vec::new();
+    let mut time_col = None;
+    for line in text.lines() {
+        if time_col.is_none() {
+            header.push_str(line);
+            header.push('\n');
+            if !line.starts_with('#') && !line.starts_with('!') {
+                time_col = line.split('|').position(|c| c.trim() == "obsTime");
+            }
+            continue;
+        }
+        let Some(col) = time_col else { continue };
+        let date = line
+            .split('|')
+            .nth(col)
+            .map(|t| t.trim().chars().take(10).collect::<String>())
+            .unwrap_or_default();
+        match nights.last_mut() {
+            Some((d, rows)) if *d == date => rows.push(line.to_string()),
+            _ => nights.push((date, vec![line.to_string()])),
+        }
+    }
+    (header, nights)
+}
