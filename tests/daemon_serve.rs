@@ -107,12 +107,12 @@ fn nights_arrive_and_each_quiet_period_gives_one_solution() {
         dir.drop_file(&format!("burst-{i:03}.psv"), &file_of(&header, chunk));
         files += 1;
     }
-    assert!(files <= 200 && files >= 150, "{files} files");
+    assert!((150..=200).contains(&files), "{files} files");
     let before = solution_count(&d);
     let all = poll_until("every observation in a solution", FIT, POLL, || {
         let list = d.solutions(OBJECT);
         let newest = list.first()?;
-        (newest["observations"].as_u64() == Some(total as u64)).then(|| list)
+        (newest["observations"].as_u64() == Some(total as u64)).then_some(list)
     });
     let burst_fits = all.len() - before;
     assert!(
