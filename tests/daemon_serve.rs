@@ -171,6 +171,73 @@ fn nights_arrive_and_each_quiet_period_gives_one_solution() {
         }
         assert_eq!(rejected(a), rejected(b), "{}", a["name"]);
     }
+
+    // Residuals of every observation, kept with the solution.
+    let seq = latest["seq"].as_u64().unwrap();
+    let (status, r) = d.get(&format!(
+        "/v1/objects/{}/solutions/{seq}/residuals",
+        common::daemon::encode(OBJECT)
+    ));
+    assert_eq!(status, 200, "{r}");
+    let list = r["residuals"].as_array().unwrap();
+    assert_eq!(list.len(), total);
+    let used = list.iter().filter(|x| x["used"] == true).count();
+    assert_eq!(Some(used as u64), stored["n_used"].as_u64());
+
+    // Predictions from the stored state, without a refit, agree with the
+    // predict command, which fits the same observations afresh.
+    let grid = ["2026-09-01T00:00:00Z", "2026-09-21T00:00:00Z", "10"];
+    let (status, p) = d.get(&format!(
+        "/v1/objects/{}/predictions?station=ZQA&from={}&to={}&step={}",
+        common::daemon::encode(OBJECT),
+        grid[0],
+        grid[1],
+        grid[2]
+    ));
+    assert_eq!(status, 200, "{p}");
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_perihelix"))
+        .args([
+            "predict",
+            "--json",
+            "--station",
+            "ZQA",
+            "--from",
+            grid[0],
+            "--to",
+            grid[1],
+            "--step",
+            grid[2],
+            "--config",
+        ])
+        .arg(&dir.config)
+        .arg(repo().join(FIXTURE))
+        .output()
+        .expect("the predict command runs");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let batch: Value = serde_json::from_slice(&out.stdout).expect("predict --json prints JSON");
+    let (a, b) = (
+        p["entries"].as_array().unwrap(),
+        batch["entries"].as_array().unwrap(),
+    );
+    assert_eq!(a.len(), 3);
+    assert_eq!(a.len(), b.len());
+    for (x, y) in a.iter().zip(b) {
+        for key in ["ra_deg", "dec_deg"] {
+            let (u, v) = (x[key].as_f64().unwrap(), y[key].as_f64().unwrap());
+            // The same fit within its convergence tolerance: far below a
+            // milliarcsecond (1e-9 deg is 3.6 microarcsec).
+            assert!((u - v).abs() < 1e-9, "{key}: {u} vs {v}");
+        }
+        let (u, v) = (
+            x["ellipse"]["semi_major_arcsec"].as_f64().unwrap(),
+            y["ellipse"]["semi_major_arcsec"].as_f64().unwrap(),
+        );
+        assert!((u - v).abs() <= 1e-6 * v, "ellipse {u} vs {v}");
+    }
     let status = d.stop(Duration::from_secs(30));
     assert!(status.success(), "exit status {status}");
 }

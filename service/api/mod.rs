@@ -3,6 +3,7 @@
 //! queue as everything else.
 //!
 //! - [`routes`]: the handlers and the router.
+//! - [`predict`]: predictions from a stored solution.
 //! - [`auth`]: the bearer token writes need.
 //! - [`error`]: errors as JSON with a stable code.
 //!
@@ -12,6 +13,7 @@
 
 pub mod auth;
 pub mod error;
+pub mod predict;
 pub mod routes;
 
 pub use routes::{router, ApiState};

@@ -40,6 +40,8 @@ pub struct ApiShared {
     pub token: Option<String>,
     /// Posted bodies are written here before they are taken.
     pub staging: std::path::PathBuf,
+    /// What predictions are computed with.
+    pub predictions: Arc<super::predict::PredictionContext>,
     /// Set once the store is open and the first scan is done.
     pub ready: AtomicBool,
     uploads: AtomicU64,
@@ -53,6 +55,7 @@ impl ApiState {
         store: Arc<dyn Store>,
         intake: Arc<Intake>,
         metrics: Arc<Metrics>,
+        predictions: Arc<super::predict::PredictionContext>,
         token: Option<String>,
         staging: std::path::PathBuf,
     ) -> Self {
@@ -60,6 +63,7 @@ impl ApiState {
             store,
             intake,
             metrics,
+            predictions,
             token,
             staging,
             ready: AtomicBool::new(false),
@@ -78,6 +82,11 @@ pub fn router(state: ApiState) -> Router {
         .route("/v1/objects/{id}/solutions", get(solutions))
         .route("/v1/objects/{id}/solutions/latest", get(latest_solution))
         .route("/v1/objects/{id}/solutions/{seq}", get(solution))
+        .route("/v1/objects/{id}/solutions/{seq}/residuals", get(residuals))
+        .route(
+            "/v1/objects/{id}/predictions",
+            get(super::predict::predictions),
+        )
         .route("/v1/objects/{id}/observations", get(observations))
         .route("/v1/objects/{id}/refit", post(refit))
         .route("/v1/observations", post(post_observations))
@@ -171,7 +180,7 @@ fn valid_name(name: &str) -> Result<(), ApiError> {
     Ok(())
 }
 
-async fn find_object(s: &ApiState, name: String) -> Result<ObjectState, ApiError> {
+pub(super) async fn find_object(s: &ApiState, name: String) -> Result<ObjectState, ApiError> {
     valid_name(&name)?;
     let shown = name.clone();
     blocking(s, move |store| store.object(&name))
@@ -310,6 +319,27 @@ async fn solution(
         .await?
         .map(Json)
         .ok_or_else(|| ApiError::not_found(format!("object {} has no solution {seq}", object.id)))
+}
+
+async fn residuals(
+    State(s): State<ApiState>,
+    Path((id, seq)): Path<(String, String)>,
+) -> Result<Json<serde_json::Value>, ApiError> {
+    let seq: u64 = seq.parse().map_err(|_| {
+        ApiError::bad_request("bad_sequence", format!("'{seq}' is not a solution number"))
+    })?;
+    let object = find_object(&s, id).await?;
+    let oid = object.id.clone();
+    let list = blocking(&s, move |store| store.residuals(&oid, seq))
+        .await?
+        .ok_or_else(|| {
+            ApiError::not_found(format!("object {} has no solution {seq}", object.id))
+        })?;
+    Ok(Json(serde_json::json!({
+        "object_id": object.id,
+        "solution": seq,
+        "residuals": list,
+    })))
 }
 
 #[derive(Serialize)]

@@ -27,6 +27,7 @@ use std::time::Duration;
 use thiserror::Error;
 use tokio::sync::oneshot;
 
+use crate::api::predict::PredictionContext;
 use crate::api::{router, ApiState};
 use crate::config::Config;
 use crate::store::{SledStore, Store, StoreError};
@@ -54,6 +55,24 @@ pub enum DaemonError {
     },
     #[error("the HTTP server failed: {0}")]
     Serve(std::io::Error),
+    #[error("{0}")]
+    Setup(String),
+}
+
+/// The ephemeris, time scales and force model predictions are made with:
+/// the configuration's, as for the fits.
+fn prediction_context(config: &Config) -> Result<PredictionContext, DaemonError> {
+    let setup = |e: &dyn std::fmt::Display| DaemonError::Setup(e.to_string());
+    let settings = crate::solve::settings::solve_settings(&config.fit, &config.stations)
+        .map_err(|e| setup(&e))?;
+    Ok(PredictionContext {
+        ephemeris: crate::solve::sources::open(&config.ephemeris).map_err(|e| setup(&e))?,
+        scales: crate::solve::time_scales(config).map_err(|e| setup(&e))?,
+        gravity: settings.gravity,
+        laws: settings.ladder.laws,
+        propagation: settings.ladder.fit.propagation,
+        stations: config.stations.clone(),
+    })
 }
 
 /// Waits for SIGTERM or ctrl-c.
@@ -116,10 +135,12 @@ pub async fn serve(config: Config) -> Result<(), DaemonError> {
         queue,
         metrics: metrics.clone(),
     });
+    let predictions = Arc::new(prediction_context(&config)?);
     let api = ApiState::new(
         store.clone(),
         intake.clone(),
         metrics.clone(),
+        predictions,
         config.api.token.clone(),
         config.directories.database.join("staging"),
     );

@@ -67,6 +67,40 @@ pub struct SolutionDocument {
     /// with the astrometry.
     pub photometry: Option<BrightnessDocument>,
     pub models: Vec<ModelDocument>,
+    /// Every observation's residual under the recommended model, in the
+    /// order the fit saw them (empty when no model is recommended).
+    pub residuals: Vec<ResidualDocument>,
+}
+
+/// One observation's place in the recommended fit.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ResidualDocument {
+    pub obs_time: String,
+    pub station: String,
+    /// O - C in RA cos Dec and in Dec, arcsec.
+    pub ra_cos_dec_arcsec: f64,
+    pub dec_arcsec: f64,
+    /// The observation's chi^2 against the fit (see the fit's outlier
+    /// rules): used ones with their own weight removed, rejected ones
+    /// with the orbit's uncertainty added.
+    pub chi2: f64,
+    pub used: bool,
+}
+
+/// A fitted model's parameters and their full covariance at the fit
+/// epoch: enough to predict from the model again without refitting.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct StateDocument {
+    /// The fit epoch, TDB days since J2000 (JD 2451545.0 TDB); a whole day
+    /// is exact in one number, unlike a Julian date.
+    pub epoch_tdb_days_j2000: f64,
+    /// Parameter names in the order of `values` and `covariance`:
+    /// x_au, y_au, z_au, vx_au_per_day, vy_au_per_day, vz_au_per_day
+    /// (heliocentric, ICRF axes), then the free A_i in au/day^2.
+    pub parameters: Vec<String>,
+    pub values: Vec<f64>,
+    /// Row-major; null when the normal matrix was singular.
+    pub covariance: Option<Vec<Vec<f64>>>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -107,6 +141,8 @@ pub struct ModelDocument {
     pub problems: Vec<String>,
     pub rejected: Vec<RejectedDocument>,
     pub trend: Option<TrendDocument>,
+    /// The fitted parameters and covariance (converged models only).
+    pub state: Option<StateDocument>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -238,6 +274,55 @@ pub fn nongrav_estimates(fit: &OrbitFit) -> Vec<(usize, ValueSigma)> {
         .collect()
 }
 
+/// Names of a fit's parameters, in its order.
+fn parameter_names(fit: &OrbitFit) -> Vec<String> {
+    let mut names: Vec<String> = [
+        "x_au",
+        "y_au",
+        "z_au",
+        "vx_au_per_day",
+        "vy_au_per_day",
+        "vz_au_per_day",
+    ]
+    .iter()
+    .map(|s| s.to_string())
+    .collect();
+    names.extend(
+        fit.nongrav_au_per_day2
+            .iter()
+            .map(|(c, _)| format!("{}_au_per_day2", term_name(*c))),
+    );
+    names
+}
+
+pub fn state_document(fit: &OrbitFit) -> StateDocument {
+    StateDocument {
+        epoch_tdb_days_j2000: fit.epoch.tdb_days_since_j2000(),
+        parameters: parameter_names(fit),
+        values: fit.parameters.iter().copied().collect(),
+        covariance: fit.covariance.as_ref().map(|c| {
+            (0..c.nrows())
+                .map(|i| (0..c.ncols()).map(|j| c[(i, j)]).collect())
+                .collect()
+        }),
+    }
+}
+
+pub fn residuals(fit: &OrbitFit, observations: &[AstrometricObservation]) -> Vec<ResidualDocument> {
+    fit.residuals
+        .iter()
+        .zip(observations)
+        .map(|(r, o)| ResidualDocument {
+            obs_time: o.time.utc().to_iso8601(3),
+            station: o.station.clone(),
+            ra_cos_dec_arcsec: r.residual_arcsec[0],
+            dec_arcsec: r.residual_arcsec[1],
+            chi2: r.chi2,
+            used: r.used,
+        })
+        .collect()
+}
+
 pub fn rejected(fit: &OrbitFit, observations: &[AstrometricObservation]) -> Vec<RejectedDocument> {
     fit.residuals
         .iter()
@@ -315,6 +400,7 @@ fn model_document(
         problems,
         rejected: fit.map(|f| rejected(f, observations)).unwrap_or_default(),
         trend: derived.and_then(|d| d.trend.as_ref()).map(trend_document),
+        state: m.converged_fit().map(state_document),
     }
 }
 
@@ -384,6 +470,10 @@ impl SolutionDocument {
                 .zip(&solution.derived)
                 .map(|(m, d)| model_document(m, d.as_ref(), &ladder.models, &solution.observations))
                 .collect(),
+            residuals: solution
+                .recommended_fit()
+                .map(|f| residuals(f, &solution.observations))
+                .unwrap_or_default(),
         }
     }
 }

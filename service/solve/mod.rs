@@ -13,6 +13,8 @@
 //! - [`report`]: the same solution as text for a person.
 //! - [`prediction`]: the time grid of a prediction request, and the
 //!   predicted places as a JSON document and a table.
+//! - [`stored`]: a stored solution document read back (a model's fit
+//!   rebuilt from its state and covariance, its brightness law).
 //!
 //! The job: an initial orbit from the observations alone, its state carried
 //! to a round epoch near the middle of the arc, the whole model ladder, and
@@ -28,6 +30,10 @@ pub mod prediction;
 pub mod report;
 pub mod settings;
 pub mod sources;
+pub mod stored;
+
+#[cfg(test)]
+pub(crate) mod test_support;
 
 use thiserror::Error;
 

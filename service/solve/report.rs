@@ -269,41 +269,14 @@ Brightness ({} magnitudes, at the recommended orbit's geometry):",
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::astro::time::Epoch;
-    use crate::fit::initial::{InitialOrbit, Method, ScoreModel};
     use crate::fit::test_support::outgassing_ladder;
-    use crate::solve::Solution;
+    use crate::solve::test_support::solution_of;
 
     /// The document and report of a ladder whose gravity-only fit was made
     /// to fail on every attempt.
     fn document_of_forced_failure() -> SolutionDocument {
         let (observations, ladder) = outgassing_ladder(usize::MAX);
-        let times: Vec<Epoch> = observations.iter().map(|o| o.time.tdb()).collect();
-        let (first, last) = (times[0], times[times.len() - 1]);
-        let epoch = crate::fit::test_support::belt_state().0;
-        let n = ladder.models.len();
-        let solution = Solution {
-            object: "2026 ZA1".into(),
-            observations,
-            first,
-            last,
-            epoch,
-            elements_epoch: epoch,
-            initial: InitialOrbit {
-                epoch,
-                state: crate::fit::test_support::belt_state().1,
-                rms_arcsec: 0.0,
-                scored_with: ScoreModel::TwoBody,
-                scored_observations: 0,
-                method: Method::Gauss {
-                    observations: [0, 1, 2],
-                    root_r2_au: 2.4,
-                    iterations: 0,
-                },
-            },
-            ladder,
-            derived: vec![None; n],
-        };
+        let solution = solution_of(observations, ladder);
         SolutionDocument::of_solution(&solution, "test".into(), None, None)
     }
 

@@ -5,6 +5,8 @@
 //! - `content`: content key -> object id (re-ingest is idempotent)
 //! - `objects`: object id -> [`ObjectState`]
 //! - `solutions`: object id / sequence (u64 BE) -> [`SolutionRecord`]
+//!   without its residuals, which are large
+//! - `residuals`: the same key -> the residual list of that solution
 //! - `names`: designation text -> object id (lookup by any designation)
 //! - `links`: journal seq (u64 BE) / index (u32 BE) -> designation group,
 //!   every group that changed the linker, in order, so the linker is
@@ -51,6 +53,7 @@ pub struct Index {
     content: Tree,
     objects: Tree,
     solutions: Tree,
+    residuals: Tree,
     names: Tree,
     links: Tree,
     meta: Tree,
@@ -139,6 +142,7 @@ impl Index {
             content: tree("content")?,
             objects: tree("objects")?,
             solutions: tree("solutions")?,
+            residuals: tree("residuals")?,
             names: tree("names")?,
             links: tree("links")?,
             meta: tree("meta")?,
@@ -448,7 +452,17 @@ impl Index {
 
     fn apply_solution(&self, record: &SolutionRecord, applied: &[u8]) -> Result<(), StoreError> {
         let key = solution_key(&record.object_id, record.seq);
-        let value = encode(record)?;
+        // The residuals (one entry per observation) go to their own tree:
+        // a solution record stays small enough for sled to keep inline.
+        let mut slim = record.clone();
+        let residuals = slim
+            .document
+            .as_mut()
+            .and_then(|d| d.as_object_mut())
+            .and_then(|o| o.remove("residuals"))
+            .unwrap_or(serde_json::Value::Array(Vec::new()));
+        let residuals = encode(&residuals)?;
+        let value = encode(&slim)?;
         let mut state: ObjectState = match self.objects.get(record.object_id.as_bytes())? {
             Some(v) => decode("objects", &v)?,
             None => ObjectState::new(&ObjectId(record.object_id.clone())),
@@ -459,12 +473,13 @@ impl Index {
             state.latest_inputs_journal_seq = record.inputs_journal_seq;
         }
         let state = encode(&state)?;
-        let result = (&self.solutions, &self.objects, &self.meta).transaction(
-            |(solutions, objects, meta)| {
+        let result = (&self.solutions, &self.residuals, &self.objects, &self.meta).transaction(
+            |(solutions, residuals_t, objects, meta)| {
                 // History is never overwritten: an entry already there
                 // (a replay) is left as it is.
                 if solutions.get(key.as_slice())?.is_none() {
                     solutions.insert(key.as_slice(), value.as_slice())?;
+                    residuals_t.insert(key.as_slice(), residuals.as_slice())?;
                     objects.insert(record.object_id.as_bytes(), state.as_slice())?;
                 }
                 meta.insert(META_APPLIED, applied)?;
@@ -569,6 +584,14 @@ impl Index {
     pub fn solution(&self, id: &str, seq: u64) -> Result<Option<SolutionRecord>, StoreError> {
         match self.solutions.get(solution_key(id, seq))? {
             Some(v) => Ok(Some(decode("solutions", &v)?)),
+            None => Ok(None),
+        }
+    }
+
+    /// The residuals of one solution (an empty list for a failed fit).
+    pub fn residuals(&self, id: &str, seq: u64) -> Result<Option<serde_json::Value>, StoreError> {
+        match self.residuals.get(solution_key(id, seq))? {
+            Some(v) => Ok(Some(decode("residuals", &v)?)),
             None => Ok(None),
         }
     }

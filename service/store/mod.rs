@@ -62,6 +62,8 @@ pub trait Store: Send + Sync {
         limit: usize,
     ) -> Result<Vec<SolutionRecord>, StoreError>;
     fn solution(&self, id: &str, seq: u64) -> Result<Option<SolutionRecord>, StoreError>;
+    /// The residuals of a solution, kept apart from its record.
+    fn residuals(&self, id: &str, seq: u64) -> Result<Option<serde_json::Value>, StoreError>;
     /// The last journal sequence number.
     fn journal_seq(&self) -> u64;
     /// Makes what is indexed survive a crash of the process.
@@ -247,6 +249,10 @@ impl Store for SledStore {
 
     fn solution(&self, id: &str, seq: u64) -> Result<Option<SolutionRecord>, StoreError> {
         self.index.solution(id, seq)
+    }
+
+    fn residuals(&self, id: &str, seq: u64) -> Result<Option<serde_json::Value>, StoreError> {
+        self.index.residuals(id, seq)
     }
 
     fn journal_seq(&self) -> u64 {
