@@ -519,7 +519,7 @@ fn predict(
         magnitude: solved.brightness.as_ref().and_then(|b| b.law),
         ..PredictSettings::default()
     };
-    let places = predict_places(&solved.ephemeris, fit, &points, &settings)?;
+    let places = predict_places(solved.ephemeris.as_ref(), fit, &points, &settings)?;
     let doc = PredictionDocument::new(
         &name,
         &chosen.name(),

@@ -383,5 +383,116 @@ fn api_refuses_what_it_must() {
         }
     }
     assert_eq!(seen.len(), 610);
+
+    // Every route the description lists is served (answered by its own
+    // handler, not the fallback), and only those methods.
+    let (status, api) = d.get("/openapi.json");
+    assert_eq!(status, 200);
+    let paths = api["paths"].as_object().expect("paths");
+    assert!(paths.len() >= 14, "{} paths", paths.len());
+    for (path, methods) in paths {
+        let concrete = path
+            .replace("{id}", &common::daemon::encode(OBJECT))
+            .replace("{seq}", "1");
+        for method in methods.as_object().unwrap().keys() {
+            let (status, body) = match method.as_str() {
+                "get" => d.get(&concrete),
+                "post" => d.post(&concrete, None, "text/psv", b"x".to_vec()),
+                other => panic!("unexpected method {other}"),
+            };
+            assert_ne!(status, 405, "{method} {path}");
+            assert_ne!(body["message"], "no such route", "{method} {path}");
+        }
+    }
+    assert!(d.stop(Duration::from_secs(30)).success());
+}
+
+#[test]
+fn analysts_overrides_are_kept_and_change_the_next_fit() {
+    let dir = DaemonDir::new("quiet_period_s = 0.5\nmax_delay_s = 60\nrescan_interval_s = 2");
+    let d = Running::start(&dir, START);
+    let (header, nights) = psv_nights(&repo().join(FIXTURE));
+    let rows: Vec<String> = nights[..8].iter().flat_map(|(_, r)| r.clone()).collect();
+    dir.drop_file("nights-01-08.psv", &file_of(&header, &rows));
+    let first = wait_for_solution(&d, 1);
+    let n = first["summary"]["observations"].as_u64().unwrap();
+    let object = common::daemon::encode(OBJECT);
+
+    // Refused: no token, an unknown action, gravity taken off.
+    let body = |v: Value| serde_json::to_vec(&v).unwrap();
+    let path = format!("/v1/objects/{object}/overrides");
+    let exclude = |key: &str| {
+        serde_json::json!({"action": "exclude_observation", "content_key": key,
+                           "by": "test analyst", "reason": "trailed image"})
+    };
+    let (status, _) = d.post(
+        &path,
+        None,
+        "application/json",
+        body(exclude(&"0".repeat(64))),
+    );
+    assert_eq!(status, 401);
+    let (status, e) = d.post(
+        &path,
+        Some(TOKEN),
+        "application/json",
+        body(serde_json::json!({"action": "unlink", "by": "x", "reason": "y"})),
+    );
+    assert!(status == 400 || status == 422, "{status} {e}");
+    assert!(
+        e["message"]
+            .as_str()
+            .unwrap()
+            .contains("exclude_observation"),
+        "{e}"
+    );
+    let (status, _) = d.post(
+        &path,
+        Some(TOKEN),
+        "application/json",
+        body(serde_json::json!({"action": "exclude_model", "model": "gravity", "by": "x", "reason": "y"})),
+    );
+    assert_eq!(status, 400);
+
+    // One observation out: the next solution has one fewer and says why.
+    let (_, page) = d.get(&format!("/v1/objects/{object}/observations?limit=1"));
+    let key = page["observations"][0]["content_key"]
+        .as_str()
+        .unwrap()
+        .to_string();
+    let (status, r) = d.post(&path, Some(TOKEN), "application/json", body(exclude(&key)));
+    assert_eq!(status, 202, "{r}");
+    let second = wait_for_solution(&d, 2);
+    assert_eq!(second["summary"]["trigger"], "override");
+    assert_eq!(second["summary"]["observations"].as_u64(), Some(n - 1));
+    assert_eq!(second["overrides"][0]["by"], "test analyst");
+    assert_eq!(second["overrides"][0]["reason"], "trailed image");
+
+    // A converged model the tests did not recommend, pinned: recommended
+    // by the pin, and the report says so.
+    let models = second["document"]["models"].as_array().unwrap();
+    let other = models
+        .iter()
+        .find(|m| m["converged"] == true && m["recommended"] == false)
+        .expect("a converged model that is not recommended")["name"]
+        .as_str()
+        .unwrap()
+        .to_string();
+    let (status, r) = d.post(
+        &path,
+        Some(TOKEN),
+        "application/json",
+        body(
+            serde_json::json!({"action": "pin_model", "model": other, "by": "test analyst",
+                                "reason": "a comparison"}),
+        ),
+    );
+    assert_eq!(status, 202, "{r}");
+    let third = wait_for_solution(&d, 3);
+    assert_eq!(third["document"]["recommended"], other.as_str());
+    assert_eq!(third["document"]["recommended_by_pin"], true);
+    assert_eq!(third["overrides"].as_array().map(Vec::len), Some(2));
+    let (_, list) = d.get(&path);
+    assert_eq!(list["overrides"].as_array().map(Vec::len), Some(2));
     assert!(d.stop(Duration::from_secs(30)).success());
 }

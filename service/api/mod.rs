@@ -4,6 +4,7 @@
 //!
 //! - [`routes`]: the handlers and the router.
 //! - [`predict`]: predictions from a stored solution.
+//! - [`overrides`]: an analyst's decisions about an object.
 //! - [`auth`]: the bearer token writes need.
 //! - [`error`]: errors as JSON with a stable code.
 //!
@@ -13,6 +14,7 @@
 
 pub mod auth;
 pub mod error;
+pub mod overrides;
 pub mod predict;
 pub mod routes;
 

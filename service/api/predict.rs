@@ -8,15 +8,13 @@ use axum::http::StatusCode;
 use axum::Json;
 use serde::Deserialize;
 
-use crate::astro::forces::{DistanceLaw, ForceModel};
-use crate::astro::propagation::PropagationSettings;
-use crate::astro::time::{TimeScales, UtcTime};
+use crate::astro::time::UtcTime;
 use crate::fit::predict::{
     predict_places, EllipseMethod, PredictSettings, PredictionPoint, MIN_SAMPLES,
 };
 use crate::solve::prediction::{utc_grid, PredictionDocument};
-use crate::solve::sources::EphemerisSource;
 use crate::solve::stored::{magnitude_law, model_fit};
+use crate::solve::SolveContext;
 
 use super::error::ApiError;
 use super::routes::{find_object, ApiState};
@@ -24,16 +22,6 @@ use super::routes::{find_object, ApiState};
 /// Most Monte Carlo samples one request may ask for: each is a full
 /// integration.
 pub const MAX_SAMPLES: usize = 2000;
-
-/// What predictions need beyond the store, prepared once at start.
-pub struct PredictionContext {
-    pub ephemeris: EphemerisSource,
-    pub scales: TimeScales,
-    pub gravity: ForceModel,
-    pub laws: Vec<DistanceLaw>,
-    pub propagation: PropagationSettings,
-    pub stations: crate::config::StationList,
-}
 
 #[derive(Deserialize)]
 pub struct PredictionQuery {
@@ -61,10 +49,10 @@ pub async fn predictions(
     Path(id): Path<String>,
     Query(q): Query<PredictionQuery>,
 ) -> Result<Json<serde_json::Value>, ApiError> {
-    let ctx: Arc<PredictionContext> = s.0.predictions.clone();
+    let ctx: Arc<SolveContext> = s.0.predictions.clone();
     // Everything the request can get wrong is checked before any work.
     let station = required(&q.station, "station")?.to_string();
-    let observer = crate::solve::input::station_position(&ctx.stations, &station)
+    let observer = crate::solve::input::station_position(&s.0.intake.config.stations, &station)
         .map_err(|e| ApiError::bad_request("bad_station", e.to_string()))?;
     let time = |name: &str, v: &Option<String>| -> Result<UtcTime, ApiError> {
         let text = required(v, name)?;
@@ -110,8 +98,8 @@ pub async fn predictions(
         let (model_name, fit) = model_fit(
             record.document.as_ref(),
             model.as_deref(),
-            &ctx.gravity,
-            &ctx.laws,
+            &ctx.settings.gravity,
+            &ctx.settings.ladder.laws,
         )
         .map_err(|e| ApiError::new(StatusCode::CONFLICT, "no_orbit", e.to_string()))?;
         let points: Vec<PredictionPoint> = times
@@ -120,17 +108,18 @@ pub async fn predictions(
             .collect();
         let settings = PredictSettings {
             method,
-            propagation: ctx.propagation,
+            propagation: ctx.settings.ladder.fit.propagation,
             magnitude: record.document.as_ref().and_then(magnitude_law),
             ..PredictSettings::default()
         };
-        let places = predict_places(&ctx.ephemeris, &fit, &points, &settings).map_err(|e| {
-            ApiError::new(
-                StatusCode::UNPROCESSABLE_ENTITY,
-                "prediction_failed",
-                e.to_string(),
-            )
-        })?;
+        let places =
+            predict_places(ctx.ephemeris.as_ref(), &fit, &points, &settings).map_err(|e| {
+                ApiError::new(
+                    StatusCode::UNPROCESSABLE_ENTITY,
+                    "prediction_failed",
+                    e.to_string(),
+                )
+            })?;
         Ok::<_, ApiError>(PredictionDocument::new(
             &name,
             &model_name,

@@ -41,7 +41,7 @@ pub struct ApiShared {
     /// Posted bodies are written here before they are taken.
     pub staging: std::path::PathBuf,
     /// What predictions are computed with.
-    pub predictions: Arc<super::predict::PredictionContext>,
+    pub predictions: Arc<crate::solve::SolveContext>,
     /// Set once the store is open and the first scan is done.
     pub ready: AtomicBool,
     uploads: AtomicU64,
@@ -55,7 +55,7 @@ impl ApiState {
         store: Arc<dyn Store>,
         intake: Arc<Intake>,
         metrics: Arc<Metrics>,
-        predictions: Arc<super::predict::PredictionContext>,
+        predictions: Arc<crate::solve::SolveContext>,
         token: Option<String>,
         staging: std::path::PathBuf,
     ) -> Self {
@@ -72,24 +72,163 @@ impl ApiState {
     }
 }
 
+/// One route: what the router serves and what `/openapi.json` says of
+/// it, declared once so the two cannot drift apart.
+pub struct Route {
+    pub method: &'static str,
+    pub path: &'static str,
+    pub summary: &'static str,
+    /// Needs `Authorization: Bearer <token>`.
+    pub token: bool,
+    /// Query parameters: name, meaning.
+    pub query: &'static [(&'static str, &'static str)],
+    handler: axum::routing::MethodRouter<ApiState>,
+}
+
+const PAGE_QUERY: &[(&str, &str)] = &[
+    ("cursor", "from the previous page's next_cursor"),
+    ("limit", "entries per page, 1 to 1000 (default 50)"),
+];
+
+const SOLUTION_QUERY: &[(&str, &str)] = &[
+    (
+        "cursor",
+        "from the previous page's next_cursor (older solutions follow)",
+    ),
+    ("limit", "entries per page, 1 to 1000 (default 50)"),
+    (
+        "since",
+        "only solutions computed at or after this UTC time (ISO 8601)",
+    ),
+    (
+        "until",
+        "only solutions computed before this UTC time (ISO 8601)",
+    ),
+    (
+        "model",
+        "only solutions recommending this model (e.g. \"A1 water-ice\")",
+    ),
+];
+
+const PREDICTION_QUERY: &[(&str, &str)] = &[
+    ("station", "observing station code (required)"),
+    ("from", "first UTC time, ISO 8601 (required)"),
+    ("to", "last UTC time, ISO 8601 (required)"),
+    ("step", "days between places (required)"),
+    (
+        "solution",
+        "the stored solution's number (default: the latest)",
+    ),
+    (
+        "model",
+        "a model of that solution (default: its recommended one)",
+    ),
+    (
+        "samples",
+        "Monte Carlo samples, 10 to 2000 (default: linear covariance map)",
+    ),
+    ("seed", "seed of the Monte Carlo samples (default 1)"),
+];
+
+/// Every route of the API.
+pub fn routes() -> Vec<Route> {
+    let r = |method, path, summary, token, query, handler| Route {
+        method,
+        path,
+        summary,
+        token,
+        query,
+        handler,
+    };
+    vec![
+        r("get", "/healthz", "The process is alive.", false, &[], get(healthz)),
+        r("get", "/readyz", "The store is open and the first scan is done.", false, &[], get(readyz)),
+        r("get", "/metrics", "Counters in the Prometheus text format.", false, &[], get(metrics)),
+        r("get", "/openapi.json", "This description of the API.", false, &[], get(openapi_json)),
+        r("get", "/v1/objects", "Every object with its latest solution's summary.", false, &[], get(objects)),
+        r("get", "/v1/objects/{id}", "One object, by internal id or any designation.", false, &[], get(object)),
+        r("get", "/v1/objects/{id}/solutions", "The object's solutions, newest first.", false, SOLUTION_QUERY, get(solutions)),
+        r("get", "/v1/objects/{id}/solutions/latest", "The latest solution record, whole.", false, &[], get(latest_solution)),
+        r("get", "/v1/objects/{id}/solutions/{seq}", "One solution record, whole.", false, &[], get(solution)),
+        r("get", "/v1/objects/{id}/solutions/{seq}/residuals", "Every observation's residual under that solution's recommended model.", false, &[], get(residuals)),
+        r("get", "/v1/objects/{id}/predictions", "Places and uncertainty ellipses from a stored solution, without refitting.", false, PREDICTION_QUERY, get(super::predict::predictions)),
+        r("get", "/v1/objects/{id}/observations", "The object's observations in time order.", false, PAGE_QUERY, get(observations)),
+        r("post", "/v1/objects/{id}/refit", "Ask for a refit now.", true, &[], post(refit)),
+        r("get", "/v1/objects/{id}/overrides", "The analysts' decisions about the object, in order.", false, &[], get(super::overrides::list_overrides)),
+        r("post", "/v1/objects/{id}/overrides", "An analyst's decision (JSON: action, its argument, by, reason); triggers a refit.", true, &[], post(super::overrides::post_override)),
+        r("post", "/v1/observations", "Observations (ADES PSV or XML, or JSON lines) through the same ingest as the watched directory.", true, &[], post(post_observations)),
+    ]
+}
+
+/// The OpenAPI 3.1 description of [`routes`].
+pub fn openapi() -> serde_json::Value {
+    let mut paths = serde_json::Map::new();
+    for route in routes() {
+        let mut parameters: Vec<serde_json::Value> = route
+            .path
+            .split('/')
+            .filter_map(|seg| seg.strip_prefix('{')?.strip_suffix('}'))
+            .map(|name| {
+                serde_json::json!({
+                    "name": name, "in": "path", "required": true,
+                    "schema": {"type": "string"},
+                    "description": if name == "id" {
+                        "internal id (obj-...) or any designation, URL-encoded"
+                    } else {
+                        "solution number"
+                    },
+                })
+            })
+            .collect();
+        parameters.extend(route.query.iter().map(|(name, what)| {
+            serde_json::json!({
+                "name": name, "in": "query", "required": what.contains("(required)"),
+                "schema": {"type": "string"}, "description": what,
+            })
+        }));
+        let mut op = serde_json::json!({
+            "summary": route.summary,
+            "parameters": parameters,
+            "responses": {
+                "200": {"description": "the answer, as JSON (the metrics as text)"},
+                "400": {"description": "a bad parameter: {error, message}"},
+                "404": {"description": "no such object, solution or route: {error, message}"},
+            },
+        });
+        if route.token {
+            op["security"] = serde_json::json!([{"bearer": []}]);
+            op["responses"]["401"] =
+                serde_json::json!({"description": "no token, or not the configured one"});
+            op["responses"]["413"] =
+                serde_json::json!({"description": "the body is over the size limit"});
+        }
+        let entry = paths
+            .entry(route.path.to_string())
+            .or_insert_with(|| serde_json::json!({}));
+        entry[route.method] = op;
+    }
+    serde_json::json!({
+        "openapi": "3.1.0",
+        "info": {
+            "title": "perihelix",
+            "version": env!("CARGO_PKG_VERSION"),
+            "description": "Orbit solutions of newly found small bodies, refitted as observations arrive.",
+        },
+        "components": {"securitySchemes": {"bearer": {"type": "http", "scheme": "bearer"}}},
+        "paths": paths,
+    })
+}
+
+async fn openapi_json() -> Json<serde_json::Value> {
+    Json(openapi())
+}
+
 pub fn router(state: ApiState) -> Router {
-    Router::new()
-        .route("/healthz", get(healthz))
-        .route("/readyz", get(readyz))
-        .route("/metrics", get(metrics))
-        .route("/v1/objects", get(objects))
-        .route("/v1/objects/{id}", get(object))
-        .route("/v1/objects/{id}/solutions", get(solutions))
-        .route("/v1/objects/{id}/solutions/latest", get(latest_solution))
-        .route("/v1/objects/{id}/solutions/{seq}", get(solution))
-        .route("/v1/objects/{id}/solutions/{seq}/residuals", get(residuals))
-        .route(
-            "/v1/objects/{id}/predictions",
-            get(super::predict::predictions),
-        )
-        .route("/v1/objects/{id}/observations", get(observations))
-        .route("/v1/objects/{id}/refit", post(refit))
-        .route("/v1/observations", post(post_observations))
+    routes()
+        .into_iter()
+        .fold(Router::new(), |router, route| {
+            router.route(route.path, route.handler)
+        })
         .fallback(|| async { ApiError::not_found("no such route") })
         .layer(axum::middleware::from_fn(refuse_declared_oversize))
         .layer(DefaultBodyLimit::max(BODY_LIMIT_BYTES))
@@ -514,5 +653,38 @@ async fn post_observations(
             "not_stored",
             e.to_string(),
         )),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_description_lists_exactly_the_routes() {
+        let doc = openapi();
+        let paths = doc["paths"].as_object().unwrap();
+        let routes = routes();
+        let operations: usize = paths.values().map(|p| p.as_object().unwrap().len()).sum();
+        assert_eq!(operations, routes.len(), "one operation per route");
+        for r in &routes {
+            assert!(
+                paths[r.path][r.method].is_object(),
+                "{} {}",
+                r.method,
+                r.path
+            );
+            if r.token {
+                assert!(paths[r.path][r.method]["security"].is_array());
+            }
+        }
+    }
+
+    #[test]
+    fn cursors_round_trip_through_hex() {
+        let key = b"obj-0123456789abcdef/2026-02-09T02:18:34.808000000Z/\x00\xff";
+        assert_eq!(from_hex(&to_hex(key)).as_deref(), Some(&key[..]));
+        assert_eq!(from_hex("zz"), None);
+        assert_eq!(from_hex("abc"), None);
     }
 }

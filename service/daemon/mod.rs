@@ -27,7 +27,6 @@ use std::time::Duration;
 use thiserror::Error;
 use tokio::sync::oneshot;
 
-use crate::api::predict::PredictionContext;
 use crate::api::{router, ApiState};
 use crate::config::Config;
 use crate::store::{SledStore, Store, StoreError};
@@ -57,22 +56,6 @@ pub enum DaemonError {
     Serve(std::io::Error),
     #[error("{0}")]
     Setup(String),
-}
-
-/// The ephemeris, time scales and force model predictions are made with:
-/// the configuration's, as for the fits.
-fn prediction_context(config: &Config) -> Result<PredictionContext, DaemonError> {
-    let setup = |e: &dyn std::fmt::Display| DaemonError::Setup(e.to_string());
-    let settings = crate::solve::settings::solve_settings(&config.fit, &config.stations)
-        .map_err(|e| setup(&e))?;
-    Ok(PredictionContext {
-        ephemeris: crate::solve::sources::open(&config.ephemeris).map_err(|e| setup(&e))?,
-        scales: crate::solve::time_scales(config).map_err(|e| setup(&e))?,
-        gravity: settings.gravity,
-        laws: settings.ladder.laws,
-        propagation: settings.ladder.fit.propagation,
-        stations: config.stations.clone(),
-    })
 }
 
 /// Waits for SIGTERM or ctrl-c.
@@ -124,9 +107,13 @@ pub async fn serve(config: Config) -> Result<(), DaemonError> {
     let metrics = Arc::new(Metrics::new());
     let (trigger, shutdown) = shutdown::channel();
     let (queue, requests) = crate::worker::queue();
+    let solve = Arc::new(
+        crate::solve::SolveContext::new(&config).map_err(|e| DaemonError::Setup(e.to_string()))?,
+    );
     let job = Arc::new(JobContext {
         config: config.clone(),
         store: store.clone(),
+        solve: solve.clone(),
         identity: identity(&config),
     });
     let intake = Arc::new(Intake {
@@ -135,7 +122,7 @@ pub async fn serve(config: Config) -> Result<(), DaemonError> {
         queue,
         metrics: metrics.clone(),
     });
-    let predictions = Arc::new(prediction_context(&config)?);
+    let predictions = solve.clone();
     let api = ApiState::new(
         store.clone(),
         intake.clone(),

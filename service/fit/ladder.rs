@@ -53,6 +53,13 @@ pub struct LadderSettings {
     /// Above this normalised RMS the F form of the test is used.
     pub f_test_above_nrms: f64,
     pub fit: FitSettings,
+    /// Models (by name, e.g. "A1+A2+A3 water-ice") an analyst has taken
+    /// off the ladder. Gravity alone, the reference of every test, cannot
+    /// be.
+    pub excluded: Vec<String>,
+    /// A model an analyst has pinned: recommended whenever it converges,
+    /// whatever the tests say (the tests are still reported).
+    pub pinned: Option<String>,
 }
 
 impl Default for LadderSettings {
@@ -68,6 +75,8 @@ impl Default for LadderSettings {
             significance_sigma: 3.0,
             f_test_above_nrms: 1.2,
             fit: FitSettings::default(),
+            excluded: Vec::new(),
+            pinned: None,
         }
     }
 }
@@ -320,11 +329,14 @@ fn shells(settings: &LadderSettings) -> Vec<ModelFit> {
     let mut models = vec![gravity.clone()];
     for law in &settings.laws {
         for free in settings.rungs.iter().filter(|f| f.count() > 0) {
-            models.push(ModelFit {
+            let m = ModelFit {
                 free: *free,
                 law: Some(*law),
                 ..gravity.clone()
-            });
+            };
+            if !settings.excluded.contains(&m.name()) {
+                models.push(m);
+            }
         }
     }
     models
@@ -423,6 +435,16 @@ pub(crate) fn run_ladder(
 
     let alternatives = models.len() - 1;
     decide(&mut models, &used, alternatives, settings);
+    if let Some(pinned) = &settings.pinned {
+        if let Some(i) = models
+            .iter()
+            .position(|m| &m.name() == pinned && m.converged())
+        {
+            for (j, m) in models.iter_mut().enumerate() {
+                m.recommended = j == i;
+            }
+        }
+    }
     let recommended = models.iter().position(|m| m.recommended);
     let ng_significance = significance(&models);
     Ok(Ladder {
@@ -752,5 +774,28 @@ mod tests {
         assert!(sigma > 5.0, "{sigma}");
         let rec = l.recommended_model().expect("recommended");
         assert!(rec.free.is_free(0), "{}", rec.name());
+    }
+
+    #[test]
+    fn an_analyst_can_take_a_model_off_and_pin_another() {
+        use crate::fit::test_support::outgassing_ladder_with;
+        let settings = LadderSettings {
+            excluded: vec!["A1+A2+A3 inverse-square".into()],
+            pinned: Some("A1+A2 inverse-square".into()),
+            ..LadderSettings::default()
+        };
+        let (_, l) = outgassing_ladder_with(0, settings);
+        let names: Vec<String> = l.models.iter().map(ModelFit::name).collect();
+        assert!(
+            !names.contains(&"A1+A2+A3 inverse-square".to_string()),
+            "{names:?}"
+        );
+        assert_eq!(l.alternatives, names.len() - 1);
+        // The truth is A1 alone, so the tests would recommend A1; the pin
+        // wins, and the tests are still reported.
+        let rec = l.recommended_model().expect("recommended");
+        assert_eq!(rec.name(), "A1+A2 inverse-square");
+        assert!(l.ng_significance.sigma().is_some());
+        assert_eq!(l.models.iter().filter(|m| m.recommended).count(), 1);
     }
 }

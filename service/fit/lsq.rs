@@ -108,6 +108,9 @@ pub struct FitSettings {
     pub weights: WeightSettings,
     /// Raised to stop the fit at its next iteration.
     pub cancel: Cancel,
+    /// Observations (by index) an analyst has forced in: never rejected as
+    /// outliers. Empty for none.
+    pub protected: Vec<bool>,
 }
 
 impl Default for FitSettings {
@@ -130,6 +133,7 @@ impl Default for FitSettings {
             propagation: PropagationSettings::default(),
             weights: WeightSettings::default(),
             cancel: Cancel::default(),
+            protected: Vec::new(),
         }
     }
 }
@@ -730,8 +734,9 @@ fn revise_used_set(used: &mut [bool], chi2_each: &[f64], settings: &FitSettings)
             changed = true;
         }
     }
+    let protected = |i: usize| settings.protected.get(i).copied().unwrap_or(false);
     let mut candidates: Vec<usize> = (0..used.len())
-        .filter(|i| used[*i] && chi2_each[*i] > settings.reject_chi2)
+        .filter(|i| used[*i] && chi2_each[*i] > settings.reject_chi2 && !protected(*i))
         .collect();
     candidates.sort_by(|a, b| chi2_each[*b].total_cmp(&chi2_each[*a]));
     let in_use = used.iter().filter(|u| **u).count();
@@ -890,5 +895,32 @@ mod tests {
         };
         let failed = problem_fit(&without_rule, &first.state);
         assert_ne!(failed.termination, Termination::Converged);
+    }
+
+    /// A 20-arcsec error in one observation is rejected, unless an analyst
+    /// forced that observation in.
+    #[test]
+    fn a_protected_observation_is_never_rejected() {
+        let model = ForceModel::new(&[Body::Jupiter], false, None).unwrap();
+        let mut obs = belt_observations(&model, -20.0, 24, 2.0);
+        add_noise(&mut obs, 15);
+        obs[5].dec_rad += 20.0 / crate::fit::observe::ARCSEC_PER_RAD;
+        let problem = FitProblem {
+            ephemeris: &WobblingSun,
+            model: &model,
+            observations: &obs,
+        };
+        let (epoch, start) = belt_state();
+        let free = fit_orbit(&problem, epoch, &start, &FitSettings::default()).unwrap();
+        assert!(!free.residuals[5].used, "the bad observation is rejected");
+        let mut protected = vec![false; obs.len()];
+        protected[5] = true;
+        let settings = FitSettings {
+            protected,
+            ..FitSettings::default()
+        };
+        let forced = fit_orbit(&problem, epoch, &start, &settings).unwrap();
+        assert!(forced.residuals[5].used, "forced in");
+        assert_eq!(forced.termination, Termination::Converged);
     }
 }

@@ -157,6 +157,15 @@ pub(crate) fn add_noise(observations: &mut [AstrometricObservation], seed: u64) 
 pub(crate) fn outgassing_ladder(
     gravity_failures: usize,
 ) -> (Vec<AstrometricObservation>, super::ladder::Ladder) {
+    outgassing_ladder_with(gravity_failures, super::ladder::LadderSettings::default())
+}
+
+/// [`outgassing_ladder`] with `settings` (whose laws are replaced by the
+/// inverse-square law alone).
+pub(crate) fn outgassing_ladder_with(
+    gravity_failures: usize,
+    settings: super::ladder::LadderSettings,
+) -> (Vec<AstrometricObservation>, super::ladder::Ladder) {
     use super::ladder::{run_ladder, LadderSettings, ModelFit, Start};
     use super::lsq::{fit_orbit_observed, observer_places, FitProblem, FitSettings};
     use crate::astro::forces::{DistanceLaw, FreeParameters, NonGravModel};
@@ -209,7 +218,7 @@ pub(crate) fn outgassing_ladder(
     };
     let settings = LadderSettings {
         laws: vec![DistanceLaw::InverseSquare],
-        ..LadderSettings::default()
+        ..settings
     };
     let ladder = run_ladder(&fit_one, &start, observations.len(), &settings).unwrap();
     (observations, ladder)

@@ -67,6 +67,45 @@ pub enum Problem {
     Syntax { why: String },
     #[error("cannot read file: {why}")]
     Io { why: String },
+    #[error("the line is longer than {limit_bytes} bytes (no record is that long)")]
+    LineTooLong { limit_bytes: usize },
+    #[error("the file is {bytes} bytes; {format} files over {limit_bytes} bytes are refused because they are read whole (send ADES PSV or JSON lines, which are read in chunks, or split the file)")]
+    TooLarge {
+        bytes: u64,
+        limit_bytes: u64,
+        format: &'static str,
+    },
+}
+
+impl Problem {
+    /// The reason's name, as the `reason` tag of its JSON form spells it
+    /// (rejection reports count lines by it).
+    pub fn reason(&self) -> &'static str {
+        match self {
+            Problem::NotANumber { .. } => "not_a_number",
+            Problem::OutOfRange { .. } => "out_of_range",
+            Problem::NotPositive { .. } => "not_positive",
+            Problem::BadTime { .. } => "bad_time",
+            Problem::UnknownStation { .. } => "unknown_station",
+            Problem::MissingDesignation => "missing_designation",
+            Problem::Missing => "missing",
+            Problem::BadValue { .. } => "bad_value",
+            Problem::BadLocation { .. } => "bad_location",
+            Problem::DuplicateColumn { .. } => "duplicate_column",
+            Problem::UnknownColumn => "unknown_column",
+            Problem::FieldCount { .. } => "field_count",
+            Problem::Truncated => "truncated",
+            Problem::BadVersion { .. } => "bad_version",
+            Problem::BadHeader { .. } => "bad_header",
+            Problem::NoKeywordRecord => "no_keyword_record",
+            Problem::BlockRejected { .. } => "block_rejected",
+            Problem::Unsupported { .. } => "unsupported",
+            Problem::Syntax { .. } => "syntax",
+            Problem::Io { .. } => "io",
+            Problem::LineTooLong { .. } => "line_too_long",
+            Problem::TooLarge { .. } => "too_large",
+        }
+    }
 }
 
 /// One rejected line: which file, which line, which field and why.
@@ -121,6 +160,57 @@ impl FieldProblem {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn reason_names_match_the_json_tag() {
+        // Every variant, with placeholder contents (the test's own).
+        let all = [
+            Problem::NotANumber { text: "x".into() },
+            Problem::OutOfRange {
+                text: "x".into(),
+                range: "[0, 1]",
+            },
+            Problem::NotPositive { text: "x".into() },
+            Problem::BadTime {
+                text: "x".into(),
+                why: "y".into(),
+            },
+            Problem::UnknownStation { code: "x".into() },
+            Problem::MissingDesignation,
+            Problem::Missing,
+            Problem::BadValue {
+                text: "x".into(),
+                why: "y".into(),
+            },
+            Problem::BadLocation { why: "y".into() },
+            Problem::DuplicateColumn { first_column: 1 },
+            Problem::UnknownColumn,
+            Problem::FieldCount {
+                found: 1,
+                keywords: 2,
+            },
+            Problem::Truncated,
+            Problem::BadVersion { why: "y".into() },
+            Problem::BadHeader { why: "y".into() },
+            Problem::NoKeywordRecord,
+            Problem::BlockRejected { keyword_line: 1 },
+            Problem::Unsupported {
+                kind: ObsKind::Radar,
+            },
+            Problem::Syntax { why: "y".into() },
+            Problem::Io { why: "y".into() },
+            Problem::LineTooLong { limit_bytes: 1 },
+            Problem::TooLarge {
+                bytes: 2,
+                limit_bytes: 1,
+                format: "ADES XML",
+            },
+        ];
+        for p in all {
+            let json = serde_json::to_value(&p).unwrap();
+            assert_eq!(json["reason"], p.reason(), "{p:?}");
+        }
+    }
 
     #[test]
     fn display_names_file_line_field_and_reason() {

@@ -251,44 +251,56 @@ where
 {
     let text = text.strip_prefix('\u{feff}').unwrap_or(text);
     for (i, raw) in text.split_inclusive('\n').enumerate() {
-        let number = i as u32 + 1;
-        let line = raw.trim_end_matches(['\n', '\r']);
-        if line.trim_ascii().is_empty() {
-            continue;
-        }
-        let reject = |column, field: Option<&str>, problem| Rejection {
-            file: file.to_string(),
-            line: number,
-            column,
-            field: field.map(str::to_string),
-            problem,
-        };
-        let parsed: Line<'_> = match serde_json::from_str(line) {
-            Ok(l) => l,
-            Err(e) => {
-                let problem = if e.is_eof() && !raw.ends_with('\n') {
-                    Problem::Truncated
-                } else {
-                    Problem::Syntax { why: e.to_string() }
-                };
-                sink(Err(reject(Some(e.column() as u32), None, problem)));
-                continue;
-            }
-        };
-        let (t, observer) = record_text(&parsed);
-        let source = Source {
-            file: file.clone(),
-            line: number,
-        };
-        let rules = Rules {
-            ades_mandatory: false,
-        };
-        match build(t, source, None, stations, rules) {
-            Ok(o) => sink(Ok(o)),
-            Err(p) => {
-                let field = p.field.map(|f| field_name(f, observer));
-                sink(Err(reject(None, field, p.problem)));
-            }
+        if let Some(result) = read_line(file, i as u32 + 1, raw, stations) {
+            sink(result);
         }
     }
+}
+
+/// Reads line `number` (1-based), `raw` with its line end if it has one;
+/// `None` for a blank line. Lines are independent of each other, so a
+/// file can be read a line at a time.
+pub fn read_line(
+    file: &Arc<str>,
+    number: u32,
+    raw: &str,
+    stations: &StationList,
+) -> Option<Result<Observation, Rejection>> {
+    let line = raw.trim_end_matches(['\n', '\r']);
+    if line.trim_ascii().is_empty() {
+        return None;
+    }
+    let reject = |column, field: Option<&str>, problem| Rejection {
+        file: file.to_string(),
+        line: number,
+        column,
+        field: field.map(str::to_string),
+        problem,
+    };
+    let parsed: Line<'_> = match serde_json::from_str(line) {
+        Ok(l) => l,
+        Err(e) => {
+            let problem = if e.is_eof() && !raw.ends_with('\n') {
+                Problem::Truncated
+            } else {
+                Problem::Syntax { why: e.to_string() }
+            };
+            return Some(Err(reject(Some(e.column() as u32), None, problem)));
+        }
+    };
+    let (t, observer) = record_text(&parsed);
+    let source = Source {
+        file: file.clone(),
+        line: number,
+    };
+    let rules = Rules {
+        ades_mandatory: false,
+    };
+    Some(match build(t, source, None, stations, rules) {
+        Ok(o) => Ok(o),
+        Err(p) => {
+            let field = p.field.map(|f| field_name(f, observer));
+            Err(reject(None, field, p.problem))
+        }
+    })
 }

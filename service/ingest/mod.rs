@@ -10,6 +10,7 @@ mod field;
 pub mod jsonl;
 pub mod psv;
 mod record;
+pub mod stream;
 mod time;
 mod validate;
 pub mod write;
@@ -52,18 +53,19 @@ impl Format {
     /// Picks the format by extension (`.psv`, `.xml`, `.jsonl`/`.json`),
     /// else by the first non-blank character (`#`, `<`, `{`).
     pub fn detect(path: &Path, text: &str) -> Option<Format> {
+        Format::detect_by(path, first_char(text))
+    }
+
+    /// [`Format::detect`] from the extension and the first non-blank
+    /// character alone (all a reader that streams the file has seen).
+    pub fn detect_by(path: &Path, first: Option<char>) -> Option<Format> {
         match path.extension().and_then(|e| e.to_str()) {
             Some("psv") => return Some(Format::AdesPsv),
             Some("xml") => return Some(Format::AdesXml),
             Some("jsonl" | "json") => return Some(Format::JsonLines),
             _ => {}
         }
-        match text
-            .trim_start_matches('\u{feff}')
-            .trim_start()
-            .chars()
-            .next()
-        {
+        match first {
             Some('#') => Some(Format::AdesPsv),
             Some('<') => Some(Format::AdesXml),
             Some('{') => Some(Format::JsonLines),
@@ -71,6 +73,19 @@ impl Format {
         }
     }
 }
+
+/// The first character of a text that is neither a byte-order mark nor
+/// white space.
+pub fn first_char(text: &str) -> Option<char> {
+    text.trim_start_matches('\u{feff}')
+        .trim_start()
+        .chars()
+        .next()
+}
+
+/// Why a file's format could not be told.
+const UNKNOWN_FORMAT: &str =
+    "cannot tell the format: expected .psv, .xml or .jsonl, or a file starting with '#', '<' or '{'";
 
 /// One file read and validated: its good observations and its bad lines.
 #[derive(Debug, Clone)]
@@ -118,6 +133,7 @@ pub fn read_text(file: &str, text: &str, format: Format, stations: &StationList)
     }
 }
 
+/// A rejection of a whole file (`line` 0 when no line is to blame).
 fn whole_file(file: &str, line: u32, problem: Problem) -> Rejection {
     Rejection {
         file: file.to_string(),
@@ -159,7 +175,7 @@ pub fn read_path(path: &Path, stations: &StationList) -> FileRead {
         None => fail(
             1,
             Problem::Syntax {
-                why: "cannot tell the format: expected .psv, .xml or .jsonl, or a file starting with '#', '<' or '{'".into(),
+                why: UNKNOWN_FORMAT.into(),
             },
         ),
     }

@@ -44,34 +44,44 @@ struct Block {
 }
 
 enum State {
+    /// Before the version line: only blank lines may come first.
+    Start,
+    /// The version line was missing or wrong: nothing after it can be
+    /// trusted, so every further line is passed over.
+    Refused,
     /// Header lines seen since the last data; the next record names columns.
     Header,
     Data(Block),
 }
 
-struct Reader<'a, F> {
+/// A PSV reader fed one line at a time, so that a file of any size can be
+/// read in chunks: everything a line needs from the lines before it (the
+/// version, the block's observatory and submitter, its column header) is
+/// kept here between calls.
+pub struct PsvLines<'s> {
     file: Arc<str>,
-    stations: &'a StationList,
-    sink: F,
+    stations: &'s StationList,
+    version: Option<&'static str>,
+    state: State,
     context: Option<Arc<BlockContext>>,
     pending: BlockContext,
-    group: Option<&'a str>,
+    group: Option<&'static str>,
 }
 
-impl<F: FnMut(Result<Observation, Rejection>)> Reader<'_, F> {
-    fn reject(&mut self, line: u32, column: Option<u32>, field: Option<&str>, problem: Problem) {
-        (self.sink)(Err(Rejection {
-            file: self.file.to_string(),
-            line,
-            column,
-            field: field.map(str::to_string),
-            problem,
-        }));
-    }
-}
+type Sink<'f> = dyn FnMut(Result<Observation, Rejection>) + 'f;
 
 fn column_of(line: &str, byte: usize) -> u32 {
     line.get(..byte).map_or(byte, |s| s.chars().count()) as u32 + 1
+}
+
+/// The version a `# version=...` line declares, if it is one.
+fn declared_version(line: &str) -> Option<&str> {
+    line.strip_prefix('#')
+        .map(str::trim_ascii)
+        .and_then(|l| l.strip_prefix("version"))
+        .map(str::trim_ascii)
+        .and_then(|l| l.strip_prefix('='))
+        .map(str::trim_ascii)
 }
 
 /// Reads a PSV text, handing every observation or rejection to `sink` in
@@ -81,25 +91,83 @@ pub fn read_with<F>(
     file: &Arc<str>,
     text: &str,
     stations: &StationList,
-    sink: F,
+    mut sink: F,
 ) -> Option<&'static str>
 where
     F: FnMut(Result<Observation, Rejection>),
 {
-    let mut r = Reader {
-        file: file.clone(),
-        stations,
-        sink,
-        context: None,
-        pending: BlockContext::default(),
-        group: None,
-    };
+    let mut reader = PsvLines::new(file.clone(), stations);
     let text = text.strip_prefix('\u{feff}').unwrap_or(text);
-    let mut lines = text.split_inclusive('\n').enumerate();
-    // The version line comes first; without it nothing else can be trusted.
-    let version = loop {
-        let Some((i, raw)) = lines.next() else {
-            r.reject(
+    for (i, raw) in text.split_inclusive('\n').enumerate() {
+        reader.line(i as u32 + 1, raw, &mut sink);
+    }
+    reader.finish(&mut sink);
+    reader.version()
+}
+
+impl<'s> PsvLines<'s> {
+    pub fn new(file: Arc<str>, stations: &'s StationList) -> Self {
+        Self {
+            file,
+            stations,
+            version: None,
+            state: State::Start,
+            context: None,
+            pending: BlockContext::default(),
+            group: None,
+        }
+    }
+
+    /// The version the file declared, once its version line was read.
+    pub fn version(&self) -> Option<&'static str> {
+        self.version
+    }
+
+    /// Reads line `number` (1-based), `raw` with its line end if it has
+    /// one: a line without one is the file's last, perhaps cut short.
+    pub fn line(&mut self, number: u32, raw: &str, sink: &mut Sink<'_>) {
+        let ends_with_newline = raw.ends_with('\n');
+        let line = raw.trim_end_matches(['\n', '\r']);
+        let trimmed = line.trim_ascii();
+        if trimmed.is_empty() {
+            return;
+        }
+        let version = match (&self.state, self.version) {
+            (State::Refused, _) => return,
+            (State::Start, _) | (_, None) => return self.version_line(number, trimmed, sink),
+            (_, Some(v)) => v,
+        };
+        if let Some(rest) = trimmed.strip_prefix('#') {
+            self.state = State::Header;
+            self.header(number, rest.trim_ascii(), version, sink);
+            return;
+        }
+        if let Some(rest) = trimmed.strip_prefix('!') {
+            if matches!(self.state, State::Data(_)) {
+                self.state = State::Header;
+            }
+            self.member(number, rest.trim_ascii(), sink);
+            return;
+        }
+        match std::mem::replace(&mut self.state, State::Header) {
+            State::Data(block) => {
+                self.data(number, line, &block, ends_with_newline, sink);
+                self.state = State::Data(block);
+            }
+            _ => {
+                self.context = Some(Arc::new(std::mem::take(&mut self.pending)));
+                self.group = None;
+                self.state = State::Data(self.keywords(number, line, sink));
+            }
+        }
+    }
+
+    /// Ends the file: a file with no version line at all is refused here.
+    pub fn finish(&mut self, sink: &mut Sink<'_>) {
+        if matches!(self.state, State::Start) {
+            self.state = State::Refused;
+            self.reject(
+                sink,
                 1,
                 None,
                 None,
@@ -107,83 +175,45 @@ where
                     why: "empty file; expected '# version=2017' or '# version=2022'".into(),
                 },
             );
-            return None;
-        };
-        let line = raw.trim_end_matches(['\n', '\r']).trim_ascii();
-        if line.is_empty() {
-            continue;
-        }
-        let declared = line
-            .strip_prefix('#')
-            .map(str::trim_ascii)
-            .and_then(|l| l.strip_prefix("version"))
-            .map(str::trim_ascii)
-            .and_then(|l| l.strip_prefix('='))
-            .map(str::trim_ascii);
-        match declared {
-            Some(v) => match VERSIONS.iter().find(|&&known| known == v) {
-                Some(known) => break *known,
-                None => {
-                    r.reject(
-                        i as u32 + 1,
-                        None,
-                        None,
-                        Problem::BadVersion {
-                            why: format!("version '{v}' is not 2017 or 2022"),
-                        },
-                    );
-                    return None;
-                }
-            },
-            None => {
-                r.reject(
-                    i as u32 + 1,
-                    None,
-                    None,
-                    Problem::BadVersion {
-                        why: "the first line must be '# version=2017' or '# version=2022'".into(),
-                    },
-                );
-                return None;
-            }
-        }
-    };
-
-    let mut state = State::Header;
-    for (i, raw) in lines {
-        let number = i as u32 + 1;
-        let ends_with_newline = raw.ends_with('\n');
-        let line = raw.trim_end_matches(['\n', '\r']);
-        let trimmed = line.trim_ascii();
-        if trimmed.is_empty() {
-            continue;
-        }
-        if let Some(rest) = trimmed.strip_prefix('#') {
-            state = State::Header;
-            r.header(number, rest.trim_ascii(), version);
-            continue;
-        }
-        if let Some(rest) = trimmed.strip_prefix('!') {
-            if matches!(state, State::Data(_)) {
-                state = State::Header;
-            }
-            r.member(number, rest.trim_ascii());
-            continue;
-        }
-        match &state {
-            State::Header => {
-                r.context = Some(Arc::new(std::mem::take(&mut r.pending)));
-                r.group = None;
-                state = State::Data(r.keywords(number, line));
-            }
-            State::Data(block) => r.data(number, line, block, ends_with_newline),
         }
     }
-    Some(version)
-}
 
-impl<'a, F: FnMut(Result<Observation, Rejection>)> Reader<'a, F> {
-    fn header(&mut self, number: u32, rest: &'a str, version: &str) {
+    /// The first non-blank line: the version line comes first, and
+    /// without it nothing else can be trusted.
+    fn version_line(&mut self, number: u32, line: &str, sink: &mut Sink<'_>) {
+        let why = match declared_version(line) {
+            Some(v) => match VERSIONS.iter().find(|&&known| known == v) {
+                Some(known) => {
+                    self.version = Some(known);
+                    self.state = State::Header;
+                    return;
+                }
+                None => format!("version '{v}' is not 2017 or 2022"),
+            },
+            None => "the first line must be '# version=2017' or '# version=2022'".into(),
+        };
+        self.state = State::Refused;
+        self.reject(sink, number, None, None, Problem::BadVersion { why });
+    }
+
+    fn reject(
+        &self,
+        sink: &mut Sink<'_>,
+        line: u32,
+        column: Option<u32>,
+        field: Option<&str>,
+        problem: Problem,
+    ) {
+        sink(Err(Rejection {
+            file: self.file.to_string(),
+            line,
+            column,
+            field: field.map(str::to_string),
+            problem,
+        }));
+    }
+
+    fn header(&mut self, number: u32, rest: &str, version: &str, sink: &mut Sink<'_>) {
         // A header after data starts a new block with a fresh context.
         if self.group.is_none() && self.context.is_some() {
             self.pending = BlockContext::default();
@@ -195,6 +225,7 @@ impl<'a, F: FnMut(Result<Observation, Rejection>)> Reader<'a, F> {
             let again = again.trim_start_matches('=').trim_ascii();
             if again != version {
                 self.reject(
+                    sink,
                     number,
                     None,
                     None,
@@ -210,6 +241,7 @@ impl<'a, F: FnMut(Result<Observation, Rejection>)> Reader<'a, F> {
             None => {
                 self.group = Some("");
                 self.reject(
+                    sink,
                     number,
                     None,
                     None,
@@ -221,12 +253,13 @@ impl<'a, F: FnMut(Result<Observation, Rejection>)> Reader<'a, F> {
         }
     }
 
-    fn member(&mut self, number: u32, rest: &str) {
+    fn member(&mut self, number: u32, rest: &str, sink: &mut Sink<'_>) {
         let (key, value) = rest
             .split_once(|c: char| c.is_ascii_whitespace())
             .map_or((rest, ""), |(k, v)| (k, v.trim_ascii()));
         match self.group {
             None => self.reject(
+                sink,
                 number,
                 None,
                 None,
@@ -242,7 +275,7 @@ impl<'a, F: FnMut(Result<Observation, Rejection>)> Reader<'a, F> {
         }
     }
 
-    fn keywords(&mut self, number: u32, line: &str) -> Block {
+    fn keywords(&mut self, number: u32, line: &str, sink: &mut Sink<'_>) -> Block {
         let mut columns = Vec::new();
         let mut seen: Vec<(&str, u32)> = Vec::new();
         let mut rejected = false;
@@ -253,6 +286,7 @@ impl<'a, F: FnMut(Result<Observation, Rejection>)> Reader<'a, F> {
             let name = name.trim_ascii();
             if name.is_empty() {
                 self.reject(
+                    sink,
                     number,
                     Some(col),
                     None,
@@ -265,6 +299,7 @@ impl<'a, F: FnMut(Result<Observation, Rejection>)> Reader<'a, F> {
             }
             if let Some(&(_, first)) = seen.iter().find(|(n, _)| *n == name) {
                 self.reject(
+                    sink,
                     number,
                     Some(col),
                     Some(name),
@@ -279,7 +314,7 @@ impl<'a, F: FnMut(Result<Observation, Rejection>)> Reader<'a, F> {
             match role(name) {
                 Some(role) => columns.push(role),
                 None => {
-                    self.reject(number, Some(col), Some(name), Problem::UnknownColumn);
+                    self.reject(sink, number, Some(col), Some(name), Problem::UnknownColumn);
                     rejected = true;
                     columns.push(Role::Ignored);
                 }
@@ -294,9 +329,17 @@ impl<'a, F: FnMut(Result<Observation, Rejection>)> Reader<'a, F> {
         }
     }
 
-    fn data(&mut self, number: u32, line: &str, block: &Block, ends_with_newline: bool) {
+    fn data(
+        &self,
+        number: u32,
+        line: &str,
+        block: &Block,
+        ends_with_newline: bool,
+        sink: &mut Sink<'_>,
+    ) {
         if block.rejected {
             return self.reject(
+                sink,
                 number,
                 None,
                 None,
@@ -306,7 +349,7 @@ impl<'a, F: FnMut(Result<Observation, Rejection>)> Reader<'a, F> {
             );
         }
         if let Some(kind) = block.kind {
-            return self.reject(number, None, None, Problem::Unsupported { kind });
+            return self.reject(sink, number, None, None, Problem::Unsupported { kind });
         }
         let mut text = RecordText::with_capacity(line.len());
         let mut offsets = [0u32; FIELD_COUNT];
@@ -334,10 +377,16 @@ impl<'a, F: FnMut(Result<Observation, Rejection>)> Reader<'a, F> {
         }
         let keywords = block.columns.len();
         if found > keywords {
-            return self.reject(number, None, None, Problem::FieldCount { found, keywords });
+            return self.reject(
+                sink,
+                number,
+                None,
+                None,
+                Problem::FieldCount { found, keywords },
+            );
         }
         if found < keywords && !ends_with_newline {
-            return self.reject(number, None, None, Problem::Truncated);
+            return self.reject(sink, number, None, None, Problem::Truncated);
         }
         let source = Source {
             file: self.file.clone(),
@@ -352,13 +401,13 @@ impl<'a, F: FnMut(Result<Observation, Rejection>)> Reader<'a, F> {
                 ades_mandatory: true,
             },
         ) {
-            Ok(obs) => (self.sink)(Ok(obs)),
+            Ok(obs) => sink(Ok(obs)),
             Err(p) => {
                 let column = p
                     .field
                     .map(|f| column_of(line, offsets[f as usize] as usize));
                 let field = p.field.map(Field::ades_name);
-                self.reject(number, column, field, p.problem)
+                self.reject(sink, number, column, field, p.problem)
             }
         }
     }

@@ -47,6 +47,9 @@ pub struct SolutionDocument {
     pub epoch_tdb_jd: f64,
     /// The epoch of the reported elements.
     pub elements_epoch_tdb_jd: f64,
+    /// The epoch of each model's `reference_elements` (the daemon's fixed
+    /// per-object epoch), when there is one.
+    pub reference_epoch_tdb_jd: Option<f64>,
     /// The largest Bonferroni-corrected significance of any
     /// non-gravitational model against gravity alone, Gaussian sigma; null
     /// when the comparison could not be made (never 0 for unknown).
@@ -57,6 +60,11 @@ pub struct SolutionDocument {
     pub recommended: Option<String>,
     /// Non-gravitational models tried (the Bonferroni factor).
     pub alternatives: usize,
+    /// A model an analyst pinned (recommended whenever it converges).
+    pub pinned_model: Option<String>,
+    /// Whether the recommendation is the analyst's pin rather than the
+    /// tests'.
+    pub recommended_by_pin: bool,
     pub initial_orbit: InitialDocument,
     pub ephemeris: String,
     /// What the configured star-catalogue bias table corrected (absent
@@ -132,6 +140,8 @@ pub struct ModelDocument {
     pub test: Option<TestDocument>,
     pub test_against_gravity: Option<TestDocument>,
     pub elements: Option<ElementsDocument>,
+    /// The same elements at the reference epoch, when there is one.
+    pub reference_elements: Option<ElementsDocument>,
     pub nongrav: BTreeMap<String, ValueSigma>,
     /// |A_i| / sigma(A_i).
     pub nongrav_snr: BTreeMap<String, f64>,
@@ -365,6 +375,13 @@ fn model_document(
             None
         }
     });
+    let reference_elements = derived.and_then(|d| match d.reference_elements.as_ref()? {
+        Ok(e) => Some(elements_document(e)),
+        Err(e) => {
+            problems.push(format!("elements at the reference epoch: {e}"));
+            None
+        }
+    });
     let nongrav = fit.map(nongrav_estimates).unwrap_or_default();
     ModelDocument {
         name: m.name(),
@@ -386,6 +403,7 @@ fn model_document(
             .as_ref()
             .map(|t| test_document(t, models)),
         elements,
+        reference_elements,
         nongrav_snr: m
             .term_sigmas
             .iter()
@@ -452,10 +470,14 @@ impl SolutionDocument {
             last_obs_utc: by_time(true),
             epoch_tdb_jd: solution.epoch.tdb_jd(),
             elements_epoch_tdb_jd: solution.elements_epoch.tdb_jd(),
+            reference_epoch_tdb_jd: solution.reference_epoch.map(|e| e.tdb_jd()),
             ng_significance_sigma: ladder.ng_significance.sigma(),
             ng_significance_unknown: ladder.ng_significance.unknown_reason().map(str::to_string),
             recommended: ladder.recommended_model().map(ModelFit::name),
             alternatives: ladder.alternatives,
+            pinned_model: solution.pinned_model.clone(),
+            recommended_by_pin: solution.pinned_model.is_some()
+                && ladder.recommended_model().map(ModelFit::name) == solution.pinned_model,
             initial_orbit: InitialDocument {
                 method: method.into(),
                 rms_arcsec: solution.initial.rms_arcsec,

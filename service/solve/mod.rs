@@ -35,6 +35,8 @@ pub mod stored;
 #[cfg(test)]
 pub(crate) mod test_support;
 
+use std::sync::Arc;
+
 use thiserror::Error;
 
 use crate::astro::ephemeris::{Ephemeris, StateVector};
@@ -61,6 +63,8 @@ pub struct SolveSettings {
     pub gravity: ForceModel,
     /// Elements are reported at this epoch (the fit's own when None).
     pub elements_epoch: Option<Epoch>,
+    /// Elements are also reported at this epoch, when given.
+    pub reference_epoch: Option<Epoch>,
     /// Compute the original and future barycentric 1/a (each is a long
     /// integration with partials).
     pub distant_inverse_a: bool,
@@ -73,6 +77,7 @@ impl Default for SolveSettings {
             initial: InitialOrbitSettings::default(),
             gravity: ForceModel::gravity(),
             elements_epoch: None,
+            reference_epoch: None,
             distant_inverse_a: true,
         }
     }
@@ -106,6 +111,8 @@ pub enum SolveError {
 #[derive(Debug, Clone, PartialEq)]
 pub struct ModelDerived {
     pub elements: Result<ElementEstimates, String>,
+    /// At the reference epoch, when one was asked for.
+    pub reference_elements: Option<Result<ElementEstimates, String>>,
     /// None: not asked for, or a bound orbit that never leaves the planets.
     pub original: Result<Option<DistantInverseA>, String>,
     pub future: Result<Option<DistantInverseA>, String>,
@@ -122,6 +129,10 @@ pub struct Solution {
     pub epoch: Epoch,
     /// The epoch of the reported elements.
     pub elements_epoch: Epoch,
+    /// The epoch of the reference elements, when asked for.
+    pub reference_epoch: Option<Epoch>,
+    /// The model an analyst pinned, if any.
+    pub pinned_model: Option<String>,
     pub initial: InitialOrbit,
     pub ladder: Ladder,
     /// One entry per ladder model, None where the model did not converge.
@@ -244,6 +255,7 @@ pub fn solve(
                     fit,
                     &observations,
                     elements_epoch,
+                    settings.reference_epoch,
                     settings.distant_inverse_a,
                     &propagation,
                 )
@@ -257,6 +269,8 @@ pub fn solve(
         last,
         epoch,
         elements_epoch,
+        reference_epoch: settings.reference_epoch,
+        pinned_model: settings.ladder.pinned.clone(),
         initial,
         ladder,
         derived,
@@ -270,7 +284,7 @@ pub struct RecordsSolved {
     pub solution: Solution,
     /// Where the Sun, planets and Moon came from, kept open for what the
     /// caller does next with the solution (predictions, consistency).
-    pub ephemeris: sources::EphemerisSource,
+    pub ephemeris: Arc<sources::EphemerisSource>,
     /// What the configured catalogue bias table corrected.
     pub catalog_bias: Option<catalog_bias::BiasSummary>,
     /// The brightness laws at the recommended orbit (None without
@@ -296,20 +310,67 @@ pub fn time_scales(
 pub struct SolveRequest {
     /// Elements at this epoch (the fit's own when None).
     pub elements_epoch: Option<Epoch>,
+    /// Elements also at this epoch (the daemon's per-object reference
+    /// epoch, so that a history compares like with like).
+    pub reference_epoch: Option<Epoch>,
     /// Compute the original and future barycentric 1/a.
     pub distant: bool,
     /// Raised to stop the job at the next fit iteration.
     pub cancel: crate::fit::lsq::Cancel,
+    /// Records (by index) an analyst forced in: never rejected.
+    pub protected: Vec<usize>,
+    /// Models an analyst took off the ladder, by name.
+    pub excluded_models: Vec<String>,
+    /// A model an analyst pinned, by name.
+    pub pinned_model: Option<String>,
 }
 
+/// What repeated jobs share, opened once: the ephemeris (whose embedded
+/// tables fill as they are used), the time scales and the settings the
+/// configuration gives.
+pub struct SolveContext {
+    pub ephemeris: Arc<sources::EphemerisSource>,
+    pub scales: crate::astro::time::TimeScales,
+    pub settings: SolveSettings,
+}
+
+impl SolveContext {
+    pub fn new(config: &crate::config::Config) -> Result<Self, SolveError> {
+        Ok(Self {
+            ephemeris: Arc::new(sources::open(&config.ephemeris)?),
+            scales: time_scales(config)?,
+            settings: settings::solve_settings(&config.fit, &config.stations)?,
+        })
+    }
+}
+
+/// [`solve_records_in`] with the ephemeris and settings opened for this
+/// job alone (the batch commands).
 pub fn solve_records(
     config: &crate::config::Config,
     object: &str,
     records: &[crate::ingest::Observation],
     request: &SolveRequest,
 ) -> Result<RecordsSolved, SolveError> {
-    let scales = time_scales(config)?;
-    let (kept, refused) = input::astrometric_all(records, &config.stations, &scales);
+    solve_records_in(
+        &SolveContext::new(config)?,
+        config,
+        object,
+        records,
+        request,
+    )
+}
+
+/// Fits the records of one object in a shared context.
+pub fn solve_records_in(
+    context: &SolveContext,
+    config: &crate::config::Config,
+    object: &str,
+    records: &[crate::ingest::Observation],
+    request: &SolveRequest,
+) -> Result<RecordsSolved, SolveError> {
+    let scales = &context.scales;
+    let (kept, refused) = input::astrometric_all(records, &config.stations, scales);
     let catalogs: Vec<Option<&str>> = kept.iter().map(|(i, _)| records[*i].ast_cat()).collect();
     let magnitudes: Vec<brightness::MagnitudeRecord> = kept
         .iter()
@@ -324,6 +385,10 @@ pub fn solve_records(
             })
         })
         .collect();
+    let protected: Vec<bool> = kept
+        .iter()
+        .map(|(i, _)| request.protected.contains(i))
+        .collect();
     let mut observations: Vec<AstrometricObservation> = kept.into_iter().map(|(_, o)| o).collect();
     let catalog_bias = match &config.fit.catalog_bias_file {
         Some(path) => {
@@ -331,15 +396,21 @@ pub fn solve_records(
         }
         None => None,
     };
-    let ephemeris = sources::open(&config.ephemeris)?;
-    let mut settings = settings::solve_settings(&config.fit, &config.stations)?;
+    let ephemeris = context.ephemeris.clone();
+    let mut settings = context.settings.clone();
     settings.elements_epoch = request.elements_epoch;
+    settings.reference_epoch = request.reference_epoch;
     settings.distant_inverse_a = request.distant;
     settings.ladder.fit.cancel = request.cancel.clone();
-    let solution = solve(&ephemeris, object, observations, &settings)?;
+    if protected.contains(&true) {
+        settings.ladder.fit.protected = protected;
+    }
+    settings.ladder.excluded = request.excluded_models.clone();
+    settings.ladder.pinned = request.pinned_model.clone();
+    let solution = solve(ephemeris.as_ref(), object, observations, &settings)?;
     let brightness = solution.recommended_fit().and_then(|fit| {
         brightness::brightness(
-            &ephemeris,
+            ephemeris.as_ref(),
             fit,
             &solution.observations,
             &magnitudes,
@@ -360,12 +431,17 @@ fn derive(
     fit: &OrbitFit,
     observations: &[AstrometricObservation],
     elements_epoch: Epoch,
+    reference_epoch: Option<Epoch>,
     distant: bool,
     propagation: &PropagationSettings,
 ) -> ModelDerived {
-    let elements = parameters_at(ephemeris, fit, elements_epoch, propagation)
-        .and_then(|(state, c)| elements_with_sigmas(&state, &c, elements_epoch))
-        .map_err(|e| e.to_string());
+    let at = |epoch: Epoch| {
+        parameters_at(ephemeris, fit, epoch, propagation)
+            .and_then(|(state, c)| elements_with_sigmas(&state, &c, epoch))
+            .map_err(|e| e.to_string())
+    };
+    let elements = at(elements_epoch);
+    let reference_elements = reference_epoch.map(at);
     let far = |direction| {
         if distant {
             distant_inverse_a(ephemeris, fit, direction, propagation).map_err(|e| e.to_string())
@@ -375,6 +451,7 @@ fn derive(
     };
     ModelDerived {
         elements,
+        reference_elements,
         original: far(Direction::Original),
         future: far(Direction::Future),
         trend: trend_test(fit, observations),

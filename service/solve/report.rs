@@ -30,6 +30,18 @@ pub fn verdict(doc: &SolutionDocument) -> String {
         (None, None) => Err("no figure was computed"),
     };
     let recommended = doc.models.iter().find(|m| m.recommended);
+    if doc.recommended_by_pin {
+        let name = doc.recommended.as_deref().unwrap_or_default();
+        let tests = match significance {
+            Ok(s) => format!("the largest non-gravitational significance is {s:.1} sigma"),
+            Err(reason) => {
+                format!("the comparison with gravity alone could not be made ({reason})")
+            }
+        };
+        return format!(
+            "{name} is recommended because an analyst pinned it; by the tests, {tests}."
+        );
+    }
     match (recommended, significance) {
         (None, Err(reason)) if doc.models.iter().any(|m| m.converged) => format!(
             "No model can be recommended: the comparison with gravity alone could not be made \

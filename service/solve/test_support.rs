@@ -29,6 +29,8 @@ pub(crate) fn solution_of(observations: Vec<AstrometricObservation>, ladder: Lad
         last,
         epoch,
         elements_epoch: epoch,
+        reference_epoch: None,
+        pinned_model: None,
         initial: InitialOrbit {
             epoch,
             state,

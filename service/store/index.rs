@@ -7,6 +7,7 @@
 //! - `solutions`: object id / sequence (u64 BE) -> [`SolutionRecord`]
 //!   without its residuals, which are large
 //! - `residuals`: the same key -> the residual list of that solution
+//! - `overrides`: object id / journal seq (u64 BE) -> an analyst's decision
 //! - `names`: designation text -> object id (lookup by any designation)
 //! - `links`: journal seq (u64 BE) / index (u32 BE) -> designation group,
 //!   every group that changed the linker, in order, so the linker is
@@ -30,7 +31,8 @@ use crate::ingest::{DesignationKey, Linker, ObjectId};
 
 use super::error::StoreError;
 use super::records::{
-    IndexedObservation, JournalEntry, JournalLine, ObjectState, ObservationEntry, SolutionRecord,
+    IndexedObservation, JournalEntry, JournalLine, ObjectState, ObservationEntry, OverrideAction,
+    OverrideRecord, SolutionRecord,
 };
 
 /// The schema this program writes. Version 1: the trees above.
@@ -54,6 +56,7 @@ pub struct Index {
     objects: Tree,
     solutions: Tree,
     residuals: Tree,
+    overrides: Tree,
     names: Tree,
     links: Tree,
     meta: Tree,
@@ -143,6 +146,7 @@ impl Index {
             objects: tree("objects")?,
             solutions: tree("solutions")?,
             residuals: tree("residuals")?,
+            overrides: tree("overrides")?,
             names: tree("names")?,
             links: tree("links")?,
             meta: tree("meta")?,
@@ -273,7 +277,10 @@ impl Index {
         let applied = Self::applied_value(end_offset, line.seq);
         match &line.entry {
             JournalEntry::Observations { observations, .. } => {
-                self.apply_observations(line.seq, observations, &applied)
+                self.apply_observations(line.seq, observations, None, &applied)
+            }
+            JournalEntry::Override { record } => {
+                self.apply_observations(line.seq, &[], Some(record), &applied)
             }
             JournalEntry::Solution { record } => {
                 self.apply_solution(record, &applied)?;
@@ -282,10 +289,13 @@ impl Index {
         }
     }
 
+    /// Applies new observations, or an analyst's override (which may link
+    /// designations, and so merge objects, like observations can).
     fn apply_observations(
         &self,
         journal_seq: u64,
         observations: &[ObservationEntry],
+        decision: Option<&OverrideRecord>,
         applied: &[u8],
     ) -> Result<ObservationsApplied, StoreError> {
         let mut linker = self
@@ -300,6 +310,25 @@ impl Index {
         let mut fresh: Vec<(IndexedObservation, Vec<DesignationKey>, [u8; 32])> = Vec::new();
         let mut seen = BTreeSet::new();
         let mut groups: Vec<Vec<String>> = Vec::new();
+        if let Some(OverrideRecord {
+            action: OverrideAction::Link { designations },
+            ..
+        }) = decision
+        {
+            let keys: Vec<DesignationKey> = designations
+                .iter()
+                .map(|t| DesignationKey::parse(t))
+                .collect::<Result<_, _>>()
+                .map_err(|why| StoreError::Corrupt {
+                    what: format!("journal entry {journal_seq}"),
+                    why,
+                })?;
+            let before = (linker.absorbed().len(), linker.key_count());
+            linker.link_all(&keys);
+            if (linker.absorbed().len(), linker.key_count()) != before {
+                groups.push(designations.clone());
+            }
+        }
         for entry in observations {
             let parsed = entry
                 .content_bytes()
@@ -393,6 +422,25 @@ impl Index {
             let key = obs_key(&id.0, &indexed.entry.obs_time_utc, &content);
             rows.push((key, content, id, encode(&indexed)?));
         }
+        // The decision belongs to the object its id leads to now.
+        let mut decision_row = None;
+        if let Some(d) = decision {
+            let mut id = ObjectId(d.object_id.clone());
+            for (absorbed, kept) in &merges {
+                if *absorbed == id {
+                    id = kept.clone();
+                }
+            }
+            state_of(&id, &mut states)?;
+            if let Some(s) = states.get_mut(&id.0) {
+                s.last_override_journal_seq = journal_seq;
+            }
+            let mut stored = d.clone();
+            stored.journal_seq = journal_seq;
+            let mut key = obs_prefix(&id.0);
+            key.extend_from_slice(&journal_seq.to_be_bytes());
+            decision_row = Some((key, encode(&stored)?));
+        }
         let mut names: Vec<(String, String)> = Vec::new();
         for (id, state) in states.iter_mut() {
             if state.merged_into.is_some() {
@@ -418,9 +466,13 @@ impl Index {
             &self.objects,
             &self.names,
             &self.links,
+            &self.overrides,
             &self.meta,
         )
-            .transaction(|(obs, content, objects, names_t, links, meta)| {
+            .transaction(|(obs, content, objects, names_t, links, overrides, meta)| {
+                if let Some((key, value)) = &decision_row {
+                    overrides.insert(key.as_slice(), value.as_slice())?;
+                }
                 for (old, new, v) in &moved {
                     obs.insert(new.as_slice(), v.clone())?;
                     obs.remove(old.as_slice())?;
@@ -471,6 +523,9 @@ impl Index {
             state.solutions = record.seq;
             state.latest = Some(record.summary.clone());
             state.latest_inputs_journal_seq = record.inputs_journal_seq;
+            if state.reference_epoch_tdb_days_j2000.is_none() && record.summary.converged {
+                state.reference_epoch_tdb_days_j2000 = record.reference_epoch_tdb_days_j2000;
+            }
         }
         let state = encode(&state)?;
         let result = (&self.solutions, &self.residuals, &self.objects, &self.meta).transaction(
@@ -586,6 +641,28 @@ impl Index {
             Some(v) => Ok(Some(decode("solutions", &v)?)),
             None => Ok(None),
         }
+    }
+
+    /// An object's overrides in the order they were made (with those of
+    /// objects merged into it).
+    pub fn overrides(&self, id: &str) -> Result<Vec<OverrideRecord>, StoreError> {
+        let mut ids = vec![id.to_string()];
+        for item in self.objects.iter() {
+            let (k, v) = item?;
+            let s: ObjectState = decode("objects", &v)?;
+            if s.merged_into.as_deref() == Some(id) {
+                ids.push(String::from_utf8_lossy(&k).into_owned());
+            }
+        }
+        let mut out = Vec::new();
+        for i in ids {
+            for item in self.overrides.scan_prefix(obs_prefix(&i)) {
+                let (_, v) = item?;
+                out.push(decode::<OverrideRecord>("overrides", &v)?);
+            }
+        }
+        out.sort_by_key(|r| r.journal_seq);
+        Ok(out)
     }
 
     /// The residuals of one solution (an empty list for a failed fit).

@@ -39,9 +39,13 @@ pub fn sync_dir(dir: &Path) -> std::io::Result<()> {
 
 impl Journal {
     /// Opens (or creates) the journal in `dir`, cutting off a torn last
-    /// entry. `known` is an offset and sequence number the caller already
-    /// trusts (the index's applied position), so that only the tail after
-    /// it has to be read to find the last sequence number.
+    /// entry. Every entry is read and checked, not only the tail the index
+    /// has yet to apply: the journal is what a rebuild starts from, so
+    /// damage anywhere in it is refused now, while the index still holds
+    /// what the damaged lines said, rather than at the rebuild that needs
+    /// them. `known` is the index's applied position (byte offset after
+    /// an entry, that entry's sequence number), which must fall at the end
+    /// of that very entry.
     pub fn open(dir: &Path, known: Option<(u64, u64)>) -> Result<Self, StoreError> {
         let io = |e| StoreError::io(dir, e);
         std::fs::create_dir_all(dir).map_err(io)?;
@@ -62,8 +66,7 @@ impl Journal {
             length: 0,
             last_seq: 0,
         };
-        let (start, seq) = known.unwrap_or((0, 0));
-        journal.recover(start, seq)?;
+        journal.recover(known)?;
         Ok(journal)
     }
 
@@ -79,27 +82,20 @@ impl Journal {
         self.length
     }
 
-    /// Reads from `start` to the end to find the last good entry; cuts a
-    /// torn tail off.
-    fn recover(&mut self, start: u64, seq_at_start: u64) -> Result<(), StoreError> {
+    /// Reads the whole journal to find the last good entry, checking that
+    /// the index's applied position (`known`) ends an entry; cuts a torn
+    /// tail off.
+    fn recover(&mut self, known: Option<(u64, u64)>) -> Result<(), StoreError> {
         let size = self
             .file
             .metadata()
             .map_err(|e| StoreError::io(&self.path, e))?
             .len();
-        if start > size {
-            return Err(StoreError::Corrupt {
-                what: self.path.display().to_string(),
-                why: format!(
-                    "the index has applied it up to byte {start}, but it holds only {size} bytes"
-                ),
-            });
-        }
-        let mut good_end = start;
-        let mut last_seq = seq_at_start;
+        let mut good_end = 0;
+        let mut last_seq = 0;
         let mut torn = false;
         {
-            let entries = self.read_from(start)?;
+            let entries = self.read_from(0)?;
             for item in entries {
                 match item {
                     Ok(e) => {
@@ -111,6 +107,18 @@ impl Journal {
                                     e.line.seq
                                 ),
                             });
+                        }
+                        if let Some((offset, seq)) = known {
+                            if e.line.seq == seq && e.end_offset != offset {
+                                return Err(StoreError::Corrupt {
+                                    what: self.path.display().to_string(),
+                                    why: format!(
+                                        "the index has applied entry {seq} as ending at byte \
+                                         {offset}, but here it ends at byte {}",
+                                        e.end_offset
+                                    ),
+                                });
+                            }
                         }
                         last_seq = e.line.seq;
                         good_end = e.end_offset;
@@ -127,6 +135,17 @@ impl Journal {
                     }
                     Err(ReadProblem::Io(e)) => return Err(StoreError::io(&self.path, e)),
                 }
+            }
+        }
+        if let Some((offset, seq)) = known {
+            if seq > last_seq {
+                return Err(StoreError::Corrupt {
+                    what: self.path.display().to_string(),
+                    why: format!(
+                        "the index has applied it up to entry {seq} (byte {offset}), but it \
+                         holds only {last_seq} entries ({good_end} bytes)"
+                    ),
+                });
             }
         }
         if torn || good_end < size {
@@ -331,6 +350,41 @@ mod tests {
         assert_eq!(j.last_seq(), 1);
         let lines = j.append(vec![entry("b.psv")]).unwrap();
         assert_eq!(lines[0].seq, 2);
+    }
+
+    #[test]
+    fn damage_before_the_applied_position_is_refused_too() {
+        let dir = tempfile::tempdir().unwrap();
+        let mut j = Journal::open(dir.path(), None).unwrap();
+        j.append(vec![entry("a.psv"), entry("b.psv"), entry("c.psv")])
+            .unwrap();
+        // The index has applied all three.
+        let applied = (j.length(), j.last_seq());
+        drop(j);
+        assert_eq!(
+            Journal::open(dir.path(), Some(applied)).unwrap().last_seq(),
+            3
+        );
+        let path = dir.path().join(JOURNAL_FILE);
+        let good = std::fs::read(&path).unwrap();
+        // Line 2 damaged inside its JSON, its length and newline kept.
+        let text = String::from_utf8(good.clone()).unwrap();
+        let mut lines: Vec<String> = text.lines().map(String::from).collect();
+        lines[1].replace_range(10..18, "########");
+        std::fs::write(&path, lines.join("\n") + "\n").unwrap();
+        match Journal::open(dir.path(), Some(applied)) {
+            Err(StoreError::Corrupt { why, .. }) => assert!(why.contains("line 2"), "{why}"),
+            other => panic!("expected corruption, got {:?}", other.map(|j| j.last_seq())),
+        }
+        // An applied position that is not where its entry ends, or beyond
+        // the journal's last entry: the two do not belong together.
+        std::fs::write(&path, &good).unwrap();
+        for known in [(applied.0 - 1, 3), (applied.0 + 10, 4)] {
+            match Journal::open(dir.path(), Some(known)) {
+                Err(StoreError::Corrupt { why, .. }) => assert!(why.contains("the index"), "{why}"),
+                other => panic!("expected a mismatch, got {:?}", other.map(|j| j.last_seq())),
+            }
+        }
     }
 
     #[test]

@@ -27,8 +27,9 @@ use std::sync::Mutex;
 pub use error::StoreError;
 pub use index::{ObservationsApplied, SCHEMA_VERSION};
 pub use records::{
-    IndexedObservation, JournalEntry, ObjectState, ObservationEntry, Origin, SolutionRecord,
-    SolutionSummary, StoredObservation, Trigger,
+    content_key_bytes, BatchCheck, IndexedObservation, JournalEntry, ObjectState, ObservationEntry,
+    Origin, OverrideAction, OverrideRecord, OverrideState, SolutionRecord, SolutionSummary,
+    StoredObservation, Trigger,
 };
 
 use index::Index;
@@ -62,6 +63,10 @@ pub trait Store: Send + Sync {
         limit: usize,
     ) -> Result<Vec<SolutionRecord>, StoreError>;
     fn solution(&self, id: &str, seq: u64) -> Result<Option<SolutionRecord>, StoreError>;
+    /// Journals an analyst's decision (fsync), then indexes it.
+    fn add_override(&self, record: OverrideRecord) -> Result<ObservationsApplied, StoreError>;
+    /// An object's decisions in the order they were made.
+    fn overrides(&self, id: &str) -> Result<Vec<OverrideRecord>, StoreError>;
     /// The residuals of a solution, kept apart from its record.
     fn residuals(&self, id: &str, seq: u64) -> Result<Option<serde_json::Value>, StoreError>;
     /// The last journal sequence number.
@@ -128,9 +133,23 @@ impl SledStore {
 
     /// Builds a new index from the whole journal, after moving the old
     /// index (if any) aside to `index.replaced-<unix time>`; returns the
-    /// number of entries applied.
+    /// number of entries applied. Refused while a daemon holds the store,
+    /// and (before anything is moved) when the journal is damaged.
     pub fn rebuild(database: &Path) -> Result<(Self, usize), StoreError> {
         let dir = index_dir(database);
+        // A daemon running on this store holds the index's lock: refuse
+        // rather than move its index away under it and read a journal it
+        // is appending to. An index that cannot be opened for any other
+        // reason is what a rebuild is for.
+        if dir.exists() {
+            if let Err(e @ StoreError::Locked { .. }) = Index::open(&dir) {
+                return Err(e);
+            }
+        }
+        // The journal is read whole before anything is moved: nothing can
+        // be rebuilt from a damaged one, and the index it would have
+        // replaced stays where it is.
+        let journal = Journal::open(&journal_dir(database), None)?;
         if dir.exists() {
             let stamp = std::time::SystemTime::now()
                 .duration_since(std::time::UNIX_EPOCH)
@@ -140,7 +159,6 @@ impl SledStore {
             tracing::info!(old = %aside.display(), "moved the old index aside");
         }
         let index = Index::open(&dir)?;
-        let journal = Journal::open(&journal_dir(database), None)?;
         let store = Self {
             journal: Mutex::new(journal),
             index,
@@ -253,6 +271,14 @@ impl Store for SledStore {
 
     fn residuals(&self, id: &str, seq: u64) -> Result<Option<serde_json::Value>, StoreError> {
         self.index.residuals(id, seq)
+    }
+
+    fn add_override(&self, record: OverrideRecord) -> Result<ObservationsApplied, StoreError> {
+        self.append_and_apply(JournalEntry::Override { record })
+    }
+
+    fn overrides(&self, id: &str) -> Result<Vec<OverrideRecord>, StoreError> {
+        self.index.overrides(id)
     }
 
     fn journal_seq(&self) -> u64 {

@@ -120,6 +120,21 @@ impl ObservationEntry {
     }
 }
 
+/// A content key's 64 hex digits as its 32 bytes.
+pub fn content_key_bytes(hex: &str) -> Result<[u8; 32], String> {
+    let b = hex.as_bytes();
+    if b.len() != 64 {
+        return Err(format!("content key '{hex}' is not 64 hex digits"));
+    }
+    let mut out = [0u8; 32];
+    for (i, pair) in b.chunks(2).enumerate() {
+        let text = std::str::from_utf8(pair).map_err(|e| e.to_string())?;
+        out[i] =
+            u8::from_str_radix(text, 16).map_err(|_| format!("content key '{hex}' is not hex"))?;
+    }
+    Ok(out)
+}
+
 /// A stored observation with the journal entry that brought it.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct IndexedObservation {
@@ -160,6 +175,91 @@ pub enum JournalEntry {
     },
     /// One fit of one object, successful or not.
     Solution { record: Box<SolutionRecord> },
+    /// An analyst's decision about an object.
+    Override { record: OverrideRecord },
+}
+
+/// What an analyst decided, by whom, when and why.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct OverrideRecord {
+    pub object_id: String,
+    #[serde(flatten)]
+    pub action: OverrideAction,
+    pub by: String,
+    pub reason: String,
+    pub at_utc: String,
+    /// The journal entry that holds it (0 until journaled).
+    #[serde(default)]
+    pub journal_seq: u64,
+}
+
+/// The decisions an analyst can make.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(tag = "action", rename_all = "snake_case")]
+pub enum OverrideAction {
+    /// Leave an observation out of every fit.
+    ExcludeObservation { content_key: String },
+    /// Keep an observation in every fit: never rejected as an outlier.
+    IncludeObservation { content_key: String },
+    /// Undo either of the above.
+    ClearObservation { content_key: String },
+    /// Recommend this model whenever it converges.
+    PinModel { model: String },
+    /// Take this model off the ladder (not gravity alone).
+    ExcludeModel { model: String },
+    /// Undo a pin or an exclusion of this model.
+    ClearModel { model: String },
+    /// These designations name this object.
+    Link { designations: Vec<String> },
+}
+
+/// The overrides in force after a list of them, in journal order.
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct OverrideState {
+    pub excluded_observations: std::collections::BTreeSet<String>,
+    pub included_observations: std::collections::BTreeSet<String>,
+    pub pinned_model: Option<String>,
+    pub excluded_models: std::collections::BTreeSet<String>,
+}
+
+impl OverrideState {
+    pub fn of(records: &[OverrideRecord]) -> Self {
+        let mut s = Self::default();
+        for r in records {
+            match &r.action {
+                OverrideAction::ExcludeObservation { content_key } => {
+                    s.included_observations.remove(content_key);
+                    s.excluded_observations.insert(content_key.clone());
+                }
+                OverrideAction::IncludeObservation { content_key } => {
+                    s.excluded_observations.remove(content_key);
+                    s.included_observations.insert(content_key.clone());
+                }
+                OverrideAction::ClearObservation { content_key } => {
+                    s.excluded_observations.remove(content_key);
+                    s.included_observations.remove(content_key);
+                }
+                OverrideAction::PinModel { model } => {
+                    s.excluded_models.remove(model);
+                    s.pinned_model = Some(model.clone());
+                }
+                OverrideAction::ExcludeModel { model } => {
+                    if s.pinned_model.as_ref() == Some(model) {
+                        s.pinned_model = None;
+                    }
+                    s.excluded_models.insert(model.clone());
+                }
+                OverrideAction::ClearModel { model } => {
+                    if s.pinned_model.as_ref() == Some(model) {
+                        s.pinned_model = None;
+                    }
+                    s.excluded_models.remove(model);
+                }
+                OverrideAction::Link { .. } => {}
+            }
+        }
+        s
+    }
 }
 
 /// A journal entry with its sequence number.
@@ -208,6 +308,35 @@ pub struct SolutionRecord {
     /// The fit's whole document (as `perihelix fit --json` prints it);
     /// absent when the fit failed.
     pub document: Option<serde_json::Value>,
+    /// The object's reference epoch the document's `reference_elements`
+    /// are at (fixed at its first solution), TDB days since J2000.
+    #[serde(default)]
+    pub reference_epoch_tdb_days_j2000: Option<f64>,
+    /// The observations new since the previous solution, tested against
+    /// that solution's prediction.
+    #[serde(default)]
+    pub new_batch: Option<BatchCheck>,
+    /// The analysts' decisions in force for this fit.
+    #[serde(default)]
+    pub overrides: Vec<OverrideRecord>,
+}
+
+/// New observations against the previous solution's prediction.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct BatchCheck {
+    /// The solution they were tested against.
+    pub against_solution: u64,
+    pub observations: usize,
+    /// chi^2 with the prediction covariance, its degrees of freedom, the
+    /// tail probability (as log10 too, for batches far off) and the same
+    /// tail as Gaussian sigma; absent with the reason when the test could
+    /// not be made.
+    pub chi2: Option<f64>,
+    pub dof: Option<usize>,
+    pub p_value: Option<f64>,
+    pub log10_p_value: Option<f64>,
+    pub sigma: Option<f64>,
+    pub not_made: Option<String>,
 }
 
 /// What the index knows of an object.
@@ -224,6 +353,13 @@ pub struct ObjectState {
     pub latest: Option<SolutionSummary>,
     /// The journal position of the latest solution's inputs.
     pub latest_inputs_journal_seq: u64,
+    /// The latest analyst's decision about this object.
+    #[serde(default)]
+    pub last_override_journal_seq: u64,
+    /// Where elements are compared across solutions: the first converged
+    /// solution's fit epoch, TDB days since J2000.
+    #[serde(default)]
+    pub reference_epoch_tdb_days_j2000: Option<f64>,
     /// Set when this object was merged into another by a designation link.
     pub merged_into: Option<String>,
 }
@@ -240,15 +376,21 @@ impl ObjectState {
             solutions: 0,
             latest: None,
             latest_inputs_journal_seq: 0,
+            last_override_journal_seq: 0,
+            reference_epoch_tdb_days_j2000: None,
             merged_into: None,
         }
     }
 
-    /// Observations arrived since the latest fit saw its inputs.
+    /// Observations arrived, or an analyst decided, since the latest fit
+    /// saw its inputs.
     pub fn needs_refit(&self) -> bool {
         self.merged_into.is_none()
             && self.observations > 0
-            && self.last_obs_journal_seq > self.latest_inputs_journal_seq
+            && self
+                .last_obs_journal_seq
+                .max(self.last_override_journal_seq)
+                > self.latest_inputs_journal_seq
     }
 }
 

@@ -47,6 +47,9 @@ fn record(id: &str, seq: u64, inputs: u64) -> SolutionRecord {
         software_version: "test".into(),
         identity: Default::default(),
         document: None,
+        reference_epoch_tdb_days_j2000: None,
+        new_batch: None,
+        overrides: Vec::new(),
     }
 }
 

@@ -35,7 +35,7 @@ use crate::daemon::shutdown::Shutdown;
 use crate::store::{Store, Trigger};
 use crate::worker::RefitQueue;
 
-use take::{is_candidate, take_file, Taken};
+use take::{is_candidate, take_file_with, Hooks, Progress, Taken};
 
 /// A scan leaves files younger than this for the next look.
 pub const SETTLE: Duration = Duration::from_secs(2);
@@ -159,12 +159,30 @@ pub struct Intake {
 
 /// Takes one file off the executor and reports it.
 pub async fn take_one(intake: &Intake, path: PathBuf) -> Result<Taken, take::TakeError> {
+    take_one_until(intake, path, None).await
+}
+
+/// [`take_one`], stopping between the chunks of a big file once `stop` is
+/// set (the file stays in the incoming directory). Every chunk feeds the
+/// intake's heartbeat: a big file is progress, not a stuck loop.
+pub async fn take_one_until(
+    intake: &Intake,
+    path: PathBuf,
+    stop: Option<Shutdown>,
+) -> Result<Taken, take::TakeError> {
     let (config, store) = (intake.config.clone(), intake.store.clone());
+    let metrics = intake.metrics.clone();
     let p = path.clone();
     let result = tokio::task::spawn_blocking(move || {
         let span = tracing::info_span!("file", file = %p.display());
         let _enter = span.enter();
-        take_file(&p, &config, store.as_ref())
+        let beat = |_: &Progress| metrics.beat(&metrics.intake_heartbeat_ms);
+        let stopping = || stop.as_ref().is_some_and(Shutdown::is_set);
+        let hooks = Hooks {
+            progress: &beat,
+            stop: &stopping,
+        };
+        take_file_with(&p, &config, store.as_ref(), hooks)
     })
     .await
     .unwrap_or_else(|e| {
@@ -207,6 +225,7 @@ pub async fn take_one(intake: &Intake, path: PathBuf) -> Result<Taken, take::Tak
             tracing::warn!(file = %path.display(), moved = %to.display(), "file rejected: {reason}");
         }
         Ok(Taken::Gone) => {}
+        Err(e @ take::TakeError::Stopped { .. }) => tracing::info!("{e}"),
         Err(e) => tracing::error!("{e}"),
     }
     result
@@ -253,7 +272,7 @@ pub async fn run(intake: Intake, ready: oneshot::Sender<()>, mut shutdown: Shutd
             if shutdown.is_set() {
                 break;
             }
-            if let Err(e) = take_one(&intake, path).await {
+            if let Err(e) = take_one_until(&intake, path, Some(shutdown.clone())).await {
                 if e.is_disk_full() {
                     tracing::warn!("the disk is full; files wait in the incoming directory");
                 }

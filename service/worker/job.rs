@@ -9,12 +9,17 @@ use std::time::Instant;
 
 use sha2::{Digest, Sha256};
 
+use crate::astro::time::Epoch;
 use crate::config::{Config, EphemerisChoice};
+use crate::fit::consistency::batch_consistency;
 use crate::fit::lsq::Cancel;
+use crate::ingest::Observation;
 use crate::solve::document::SolutionDocument;
-use crate::solve::{solve_records, SolveError, SolveRequest};
+use crate::solve::stored::model_fit;
+use crate::solve::{solve_records_in, SolveContext, SolveError, SolveRequest};
 use crate::store::{
-    all_observations, ObjectState, SolutionRecord, SolutionSummary, Store, StoreError, Trigger,
+    all_observations, BatchCheck, IndexedObservation, ObjectState, OverrideState, SolutionRecord,
+    SolutionSummary, Store, StoreError, Trigger,
 };
 use crate::watch::clock::now_utc;
 
@@ -22,6 +27,8 @@ use crate::watch::clock::now_utc;
 pub struct JobContext {
     pub config: Arc<Config>,
     pub store: Arc<dyn Store>,
+    /// The ephemeris, time scales and settings, opened once.
+    pub solve: Arc<SolveContext>,
     /// What the solutions were computed with (see [`identity`]).
     pub identity: BTreeMap<String, String>,
 }
@@ -117,7 +124,11 @@ fn summary(
         used: doc.n_used,
         arc_days: Some(doc.arc_days),
         recommended: doc.recommended.clone(),
-        e: rec.and_then(|m| m.elements.as_ref()).map(|e| e.e),
+        // At the reference epoch when there is one: a history of e then
+        // compares osculating values at one epoch.
+        e: rec
+            .and_then(|m| m.reference_elements.as_ref().or(m.elements.as_ref()))
+            .map(|e| e.e),
         one_over_a_original_per_au: rec.and_then(|m| m.one_over_a_original.as_ref()).map(|a| {
             crate::solve::document::ValueSigma {
                 value: a.value,
@@ -146,12 +157,29 @@ pub fn refit(
         .object(object_id)?
         .ok_or_else(|| JobError::UnknownObject(object_id.to_string()))?;
     let stored = all_observations(ctx.store.as_ref(), &state.id)?;
-    let inputs_journal_seq = stored.iter().map(|o| o.journal_seq).max().unwrap_or(0);
+    let overrides = ctx.store.overrides(&state.id)?;
+    let decided = OverrideState::of(&overrides);
+    // Every observation and every decision journaled up to here is in.
+    let inputs_journal_seq = stored
+        .iter()
+        .map(|o| o.journal_seq)
+        .chain(overrides.iter().map(|o| o.journal_seq))
+        .max()
+        .unwrap_or(0);
     let mut records = Vec::with_capacity(stored.len());
+    let mut protected = Vec::new();
     let mut unusable = Vec::new();
     for o in &stored {
+        if decided.excluded_observations.contains(&o.entry.content_key) {
+            continue;
+        }
         match o.entry.record.observation(&ctx.config.stations) {
-            Ok(r) => records.push(r),
+            Ok(r) => {
+                if decided.included_observations.contains(&o.entry.content_key) {
+                    protected.push(records.len());
+                }
+                records.push(r)
+            }
             Err(why) => unusable.push(format!(
                 "{}:{}: {why}",
                 o.entry.record.file, o.entry.record.line
@@ -164,20 +192,34 @@ pub fn refit(
     let name = best_designation(&state);
     let request = SolveRequest {
         elements_epoch: None,
+        reference_epoch: state
+            .reference_epoch_tdb_days_j2000
+            .map(Epoch::from_tdb_days_since_j2000),
         distant: true,
         cancel: cancel.clone(),
+        protected,
+        excluded_models: decided.excluded_models.iter().cloned().collect(),
+        pinned_model: decided.pinned_model.clone(),
     };
-    let outcome = solve_records(&ctx.config, &name, &records, &request);
+    let outcome = solve_records_in(&ctx.solve, &ctx.config, &name, &records, &request);
     if cancel.is_set() || matches!(outcome, Err(SolveError::Cancelled)) {
         return Ok(None);
     }
+    let new_batch = batch_check(ctx, &state, &stored);
     let (created_utc, _) = now_utc();
     let seq = state.solutions + 1;
-    let (summary, document) = match outcome {
+    let (summary, document, reference_epoch) = match outcome {
         Ok(solved) => {
             let doc = SolutionDocument::new(&solved);
             let value = serde_json::to_value(&doc).ok();
-            (summary(&doc, seq, &created_utc, trigger), value)
+            let reference = state
+                .reference_epoch_tdb_days_j2000
+                .unwrap_or_else(|| solved.solution.epoch.tdb_days_since_j2000());
+            (
+                summary(&doc, seq, &created_utc, trigger),
+                value,
+                Some(reference),
+            )
         }
         Err(e) => (
             SolutionSummary {
@@ -197,6 +239,7 @@ pub fn refit(
                 failure: Some(e.to_string()),
             },
             None,
+            state.reference_epoch_tdb_days_j2000,
         ),
     };
     let record = SolutionRecord {
@@ -208,8 +251,79 @@ pub fn refit(
         software_version: env!("CARGO_PKG_VERSION").to_string(),
         identity: ctx.identity.clone(),
         document,
+        reference_epoch_tdb_days_j2000: reference_epoch,
+        new_batch,
+        overrides,
     };
     ctx.store.add_solution(record)?;
     ctx.store.flush()?;
     Ok(Some(summary))
+}
+
+/// The observations new since the previous solution, tested against that
+/// solution's recommended orbit and its prediction covariance; None when
+/// there is no previous solution or nothing new.
+fn batch_check(
+    ctx: &JobContext,
+    state: &ObjectState,
+    stored: &[IndexedObservation],
+) -> Option<BatchCheck> {
+    let previous = match ctx.store.solutions(&state.id, None, 1) {
+        Ok(list) => list.into_iter().next()?,
+        Err(e) => {
+            tracing::warn!(object = %state.id, "cannot read the previous solution: {e}");
+            return None;
+        }
+    };
+    let fresh: Vec<Observation> = stored
+        .iter()
+        .filter(|o| o.journal_seq > previous.inputs_journal_seq)
+        .filter_map(|o| o.entry.record.observation(&ctx.config.stations).ok())
+        .collect();
+    if fresh.is_empty() {
+        return None;
+    }
+    let mut check = BatchCheck {
+        against_solution: previous.seq,
+        observations: fresh.len(),
+        chi2: None,
+        dof: None,
+        p_value: None,
+        log10_p_value: None,
+        sigma: None,
+        not_made: None,
+    };
+    let settings = &ctx.solve.settings;
+    let fit = match model_fit(
+        previous.document.as_ref(),
+        None,
+        &settings.gravity,
+        &settings.ladder.laws,
+    ) {
+        Ok((_, fit)) => fit,
+        Err(e) => {
+            check.not_made = Some(format!("solution {}: {e}", previous.seq));
+            return Some(check);
+        }
+    };
+    let (kept, _) =
+        crate::solve::input::astrometric_all(&fresh, &ctx.config.stations, &ctx.solve.scales);
+    let batch: Vec<_> = kept.into_iter().map(|(_, o)| o).collect();
+    match batch_consistency(
+        ctx.solve.ephemeris.as_ref(),
+        &fit,
+        &batch,
+        &settings.ladder.fit.weights,
+        &settings.ladder.fit.propagation,
+    ) {
+        Ok(c) => {
+            check.chi2 = Some(c.chi2);
+            check.dof = Some(c.dof);
+            check.p_value = Some(c.p_value());
+            check.log10_p_value = Some(c.ln_p_value / std::f64::consts::LN_10);
+            check.sigma = Some(c.sigma);
+        }
+        Err(e) => check.not_made = Some(e.to_string()),
+    }
+    Some(check)
 }
