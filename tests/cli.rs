@@ -117,9 +117,30 @@ fn ingest_lists_rejected_lines_and_keeps_good_ones() {
 
 #[test]
 fn commands_not_built_yet_say_so_and_fail() {
-    for args in [vec!["serve"], vec!["demo"], vec!["history", "2026 ZA7"]] {
+    let out = perihelix().args(["demo"]).output().unwrap();
+    assert_eq!(out.status.code(), Some(3));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("not available yet"));
+}
+
+/// The daemon's commands name the configuration they could not read.
+#[test]
+fn daemon_commands_need_a_readable_configuration() {
+    for args in [
+        vec!["serve", "--config", "/nonexistent/perihelix.toml"],
+        vec![
+            "history",
+            "2026 ZA7",
+            "--config",
+            "/nonexistent/perihelix.toml",
+        ],
+        vec!["rebuild", "--config", "/nonexistent/perihelix.toml"],
+    ] {
         let out = perihelix().args(&args).output().unwrap();
-        assert_eq!(out.status.code(), Some(3), "{args:?}");
-        assert!(String::from_utf8_lossy(&out.stderr).contains("not available yet"));
+        assert_eq!(out.status.code(), Some(1), "{args:?}");
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert!(
+            err.contains("/nonexistent/perihelix.toml"),
+            "{args:?}: {err}"
+        );
     }
 }

@@ -10,7 +10,8 @@ use axum::response::{IntoResponse, Response};
 use axum::Json;
 use serde::Deserialize;
 
-use crate::fit::ladder::ModelFit;
+use crate::astro::forces::FreeParameters;
+use crate::fit::ladder::model_name;
 use crate::ingest::DesignationKey;
 use crate::store::{OverrideAction, OverrideRecord, Trigger};
 
@@ -34,22 +35,10 @@ pub struct OverrideRequest {
 /// Every model name the configured ladder can hold.
 fn model_names(s: &ApiState) -> Vec<String> {
     let ladder = &s.0.predictions.settings.ladder;
-    let mut names = vec!["gravity".to_string()];
+    let mut names = vec![model_name(FreeParameters::new(false, false, false), None)];
     for law in &ladder.laws {
         for free in ladder.rungs.iter().filter(|f| f.count() > 0) {
-            let shell = ModelFit {
-                free: *free,
-                law: Some(*law),
-                fit: Err(String::new()),
-                test: None,
-                test_against_gravity: None,
-                restarted_from: Vec::new(),
-                term_sigmas: Vec::new(),
-                significant: false,
-                bic: None,
-                recommended: false,
-            };
-            names.push(shell.name());
+            names.push(model_name(*free, Some(*law)));
         }
     }
     names

@@ -32,7 +32,8 @@ pub struct History {
     pub source: HistorySource,
 }
 
-fn encode_path(s: &str) -> String {
+/// Percent-encodes one path segment (designations hold spaces).
+pub fn encode_path(s: &str) -> String {
     s.bytes()
         .map(|b| match b {
             b'A'..=b'Z' | b'a'..=b'z' | b'0'..=b'9' | b'-' | b'_' | b'.' | b'~' => {

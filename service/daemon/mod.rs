@@ -40,7 +40,7 @@ const HTTP_GRACE: Duration = Duration::from_secs(5);
 
 #[derive(Debug, Error)]
 pub enum DaemonError {
-    #[error("{0}")]
+    #[error(transparent)]
     Store(#[from] StoreError),
     #[error("cannot create {path}: {source}")]
     Directory {

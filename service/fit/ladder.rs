@@ -101,6 +101,15 @@ pub fn terms_name(free: FreeParameters) -> String {
         .join("+")
 }
 
+/// "gravity", "A1 water-ice", "A1+A2 inverse-square", ...: a model's name
+/// in reports, the configuration and analysts' overrides.
+pub fn model_name(free: FreeParameters, law: Option<DistanceLaw>) -> String {
+    match law {
+        None => terms_name(free),
+        Some(law) => format!("{} {}", terms_name(free), law_name(law)),
+    }
+}
+
 /// Which form the likelihood-ratio test took.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum TestForm {
@@ -151,10 +160,7 @@ pub struct ModelFit {
 
 impl ModelFit {
     pub fn name(&self) -> String {
-        match self.law {
-            None => terms_name(self.free),
-            Some(law) => format!("{} {}", terms_name(self.free), law_name(law)),
-        }
+        model_name(self.free, self.law)
     }
 
     pub fn parameter_count(&self) -> usize {
@@ -329,13 +335,12 @@ fn shells(settings: &LadderSettings) -> Vec<ModelFit> {
     let mut models = vec![gravity.clone()];
     for law in &settings.laws {
         for free in settings.rungs.iter().filter(|f| f.count() > 0) {
-            let m = ModelFit {
-                free: *free,
-                law: Some(*law),
-                ..gravity.clone()
-            };
-            if !settings.excluded.contains(&m.name()) {
-                models.push(m);
+            if !settings.excluded.contains(&model_name(*free, Some(*law))) {
+                models.push(ModelFit {
+                    free: *free,
+                    law: Some(*law),
+                    ..gravity.clone()
+                });
             }
         }
     }

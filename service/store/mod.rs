@@ -154,7 +154,15 @@ impl SledStore {
             let stamp = std::time::SystemTime::now()
                 .duration_since(std::time::UNIX_EPOCH)
                 .map_or(0, |d| d.as_secs());
-            let aside = database.join(format!("index.replaced-{stamp}"));
+            // Never over an earlier one: a second rebuild within the same
+            // second gets the next free suffix.
+            let aside = (0u32..)
+                .map(|n| match n {
+                    0 => database.join(format!("index.replaced-{stamp}")),
+                    n => database.join(format!("index.replaced-{stamp}-{n}")),
+                })
+                .find(|p| !p.exists())
+                .unwrap_or_else(|| database.join("index.replaced"));
             std::fs::rename(&dir, &aside).map_err(|e| StoreError::io(&dir, e))?;
             tracing::info!(old = %aside.display(), "moved the old index aside");
         }

@@ -290,6 +290,34 @@ pub struct SolutionSummary {
     pub failure: Option<String>,
 }
 
+impl SolutionSummary {
+    /// The summary of a fit that gave no solution, with the reason.
+    pub fn failed(
+        seq: u64,
+        created_utc: &str,
+        trigger: Trigger,
+        observations: usize,
+        failure: String,
+    ) -> Self {
+        Self {
+            seq,
+            created_utc: created_utc.to_string(),
+            trigger,
+            converged: false,
+            observations,
+            used: 0,
+            arc_days: None,
+            recommended: None,
+            e: None,
+            one_over_a_original_per_au: None,
+            ng_significance_sigma: None,
+            rms_arcsec: None,
+            normalized_rms: None,
+            failure: Some(failure),
+        }
+    }
+}
+
 /// Every fit of an object, kept for ever under its sequence number.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct SolutionRecord {

@@ -222,22 +222,7 @@ pub fn refit(
             )
         }
         Err(e) => (
-            SolutionSummary {
-                seq,
-                created_utc: created_utc.clone(),
-                trigger,
-                converged: false,
-                observations: records.len(),
-                used: 0,
-                arc_days: None,
-                recommended: None,
-                e: None,
-                one_over_a_original_per_au: None,
-                ng_significance_sigma: None,
-                rms_arcsec: None,
-                normalized_rms: None,
-                failure: Some(e.to_string()),
-            },
+            SolutionSummary::failed(seq, &created_utc, trigger, records.len(), e.to_string()),
             None,
             state.reference_epoch_tdb_days_j2000,
         ),

@@ -178,7 +178,6 @@ fn summary_of(doc: &Value, seq: u64, created_utc: &str) -> SolutionSummary {
 struct Prepared {
     fit_s: f64,
     write_s: f64,
-    reopen_s: f64,
     /// One record as the index keeps it (without its residuals) and the
     /// residuals kept beside it, JSON bytes.
     record_bytes: usize,
@@ -308,21 +307,13 @@ fn prepare(dir: &DaemonDir, binary: &Path) -> Prepared {
         ),
         "the index holds what was written"
     );
-    drop(store);
-    let write_s = t.elapsed().as_secs_f64();
-    // Opened once more, alone, to tell how much of the daemon's start is
-    // the store's own open (sled reads its log back) on an index this
-    // size; its open waits for this process's previous handle to let go.
-    let t = Instant::now();
-    let store = SledStore::open(&dir.path("db")).expect("the store opens again");
-    let reopen_s = t.elapsed().as_secs_f64();
     // Closed here so that the daemon can take the store's lock (its open
     // waits a few seconds for sled's threads to let go of it).
     drop(store);
+    let write_s = t.elapsed().as_secs_f64();
     Prepared {
         fit_s,
         write_s,
-        reopen_s,
         record_bytes,
         residual_bytes,
         journal_bytes: bytes_under(&dir.path("db/journal")),
@@ -339,6 +330,8 @@ fn start(dir: &DaemonDir) -> (Running, f64) {
         match Running::try_start(dir, START_LIMIT) {
             Ok(r) => return (r, t.elapsed().as_secs_f64()),
             Err(refused) if refused.stderr.contains("lock") && Instant::now() < deadline => {
+                // A refusal is an answer, not a state to poll: try again
+                // a little later, within the deadline.
                 std::thread::sleep(Duration::from_millis(200));
             }
             Err(refused) => panic!(
@@ -506,6 +499,7 @@ struct Figures {
     seconds: f64,
     prepared: Prepared,
     ready_s: f64,
+    reopen_s: f64,
     idle: Memory,
     after_same: Memory,
     after_serial_one: Memory,
@@ -708,11 +702,13 @@ fn run(clients: usize, seconds: f64) -> Figures {
             *errors.entry(e.clone()).or_insert(0) += 1;
         }
     }
-    let figures = Figures {
+    let mut figures = Figures {
         clients,
         seconds,
         prepared,
         ready_s,
+        // Measured once the daemon has stopped, below.
+        reopen_s: 0.0,
         idle,
         after_same,
         after_serial_one,
@@ -734,6 +730,13 @@ fn run(clients: usize, seconds: f64) -> Figures {
     };
     let status = daemon.stop(STOP_LIMIT);
     assert!(status.success(), "the daemon stopped with {status}");
+    // The store opened once more, in this process, once the daemon has
+    // exited (so no lock is waited for): how much of the daemon's start is
+    // the store's own open, sled reading its log back, at this size.
+    let t = Instant::now();
+    let store = SledStore::open(&dir.path("db")).expect("the store opens again");
+    figures.reopen_s = t.elapsed().as_secs_f64();
+    drop(store);
     figures
 }
 
@@ -842,12 +845,13 @@ object and sequence number drawn uniformly from a seeded stream per client.
 {warm} s of warm-up are not counted; then {secs:.0} s measured. Latency is
 from sending the request to the last byte of the answer, nearest-rank
 percentiles. Memory is the daemon's own (/proc/PID/status): idle just
-after readiness with the 100 objects loaded, after the one-client run,
-VmRSS sampled every 0.1 s during the load, and VmRSS/VmHWM right after it.
-Measured {stamp} on the shared {cores}-core development machine (other
-builds and daemons running: load average {l0} at the start, {l1} at the
-end), so figures vary by tens of percent; the clients share the cores
-with the daemon.
+after readiness with the 100 objects loaded, after each step of a
+one-client run before the load, VmRSS sampled every 0.1 s during the load,
+and VmRSS/VmHWM right after it.
+Measured {stamp} on the shared {cores}-core development machine, with
+other builds and tests running (load average {l0} before the bench; the
+{l1} at its end counts the daemon's own busy threads too), so figures
+vary by tens of percent; the clients share the cores with the daemon.
 
 | requests under load | count | p50 ms | p90 ms | p99 ms | max ms | mean answer kB |
 |---|---|---|---|---|---|---|
@@ -861,9 +865,10 @@ request), clients {bcpu:.1} s, of {avail:.0} s the machine had. A closed
 loop's mean latency is clients / throughput ({little:.1} s here): the
 latencies are queueing behind the daemon's CPU.
 
-One client alone, one request at a time (no queueing): one record
-{same} times, then every one of the 5,000 records once, p50 {so50:.1} ms / p99 {so99:.1} ms; then {serial} list
-pages, p50 {sl50:.1} ms / p99 {sl99:.1} ms.
+One client alone, one request at a time (no queueing), before the load:
+one record {same} times; then every one of the 5,000 records once (p50
+{so50:.1} ms, p99 {so99:.1} ms); then {serial} list pages (p50 {sl50:.1} ms,
+p99 {sl99:.1} ms).
 
 | daemon memory | VmRSS | VmHWM | threads |
 |---|---|---|---|
@@ -888,7 +893,7 @@ resident memory under {trss:.0} MB: {rss_met} (peak {worst:.1} MiB = {worst_mb:.
         jmb = f.prepared.journal_bytes as f64 / 1e6,
         imb = f.prepared.index_bytes as f64 / 1e6,
         ready = f.ready_s,
-        reopen = f.prepared.reopen_s,
+        reopen = f.reopen_s,
         clients = f.clients,
         warm = WARM_UP.as_secs(),
         secs = f.seconds,

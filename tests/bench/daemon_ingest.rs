@@ -59,10 +59,22 @@ fn mib(kib: u64) -> f64 {
     kib as f64 / 1024.0
 }
 
+/// A count with thousands separators, as the other sections write them.
+fn thousands(n: u64) -> String {
+    let digits = n.to_string();
+    let mut out = String::new();
+    for (i, c) in digits.chars().enumerate() {
+        if i > 0 && (digits.len() - i).is_multiple_of(3) {
+            out.push(',');
+        }
+        out.push(c);
+    }
+    out
+}
+
 struct Figures {
     rows: usize,
     file_bytes: u64,
-    generate_s: f64,
     take_s: f64,
     stored: u64,
     hwm_before_kib: u64,
@@ -120,7 +132,6 @@ fn run(rows: usize) -> Figures {
     let figures = Figures {
         rows,
         file_bytes,
-        generate_s,
         take_s,
         stored,
         hwm_before_kib,
@@ -137,7 +148,7 @@ fn run(rows: usize) -> Figures {
 }
 
 fn section(f: &Figures) -> String {
-    let (stamp, _) = perihelix::watch::clock::now_utc();
+    let (_, day) = perihelix::watch::clock::now_utc();
     let load = std::fs::read_to_string("/proc/loadavg")
         .ok()
         .and_then(|l| l.split_whitespace().next().map(str::to_string))
@@ -154,13 +165,15 @@ observatory/submitter block every {per_block} rows), starts the real
 period 3600 s), renames the file into the incoming directory and polls
 until it is in the archive. Memory is the daemon's own: VmHWM (peak
 resident) from /proc/PID/status before the file and after it was taken,
-and the largest VmRSS sampled every 0.1 s meanwhile. Measured {stamp}, bench
-profile, {cores} cores, load average {load} at the end.
+and the largest VmRSS sampled every 0.1 s meanwhile. Measured {day} on the
+shared development machine ({cores} cores, load average {load} at the end:
+other builds were running, so the time varies by tens of percent; the
+memory does not), bench profile.
 
 | what | figure |
 |---|---|
-| file | {mb:.1} MB, {rows} data rows (generated in {gen:.1} s) |
-| time from rename to archived | {take:.1} s ({rate:.0} observations/s) |
+| file | {mb:.1} MB, {rows} data rows |
+| time from rename to archived | {take:.1} s ({rate} observations/s) |
 | observations stored (API count) | {stored} |
 | journal entries written | {chunks} |
 | journal / index on disk afterwards | {jmb:.0} MB / {imb:.0} MB |
@@ -169,14 +182,13 @@ profile, {cores} cores, load average {load} at the end.
 | largest VmRSS sampled while taking it | {rss_max:.1} MiB |
 | VmRSS after | {rss_after:.1} MiB |
 ",
-        rows = f.rows,
-        per_block = ROWS_PER_BLOCK,
+        rows = thousands(f.rows as u64),
+        per_block = thousands(ROWS_PER_BLOCK as u64),
         mb = f.file_bytes as f64 / 1e6,
-        gen = f.generate_s,
         take = f.take_s,
-        rate = f.stored as f64 / f.take_s.max(1e-9),
-        stored = f.stored,
-        chunks = f.chunks,
+        rate = thousands((f.stored as f64 / f.take_s.max(1e-9)).round() as u64),
+        stored = thousands(f.stored),
+        chunks = thousands(f.chunks as u64),
         jmb = f.journal_bytes as f64 / 1e6,
         imb = f.index_bytes as f64 / 1e6,
         before = mib(f.hwm_before_kib),

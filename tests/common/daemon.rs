@@ -313,14 +313,7 @@ fn unique(p: PathBuf) -> PathBuf {
 
 /// Percent-encodes a path segment.
 pub fn encode(s: &str) -> String {
-    s.bytes()
-        .map(|b| match b {
-            b'A'..=b'Z' | b'a'..=b'z' | b'0'..=b'9' | b'-' | b'_' | b'.' | b'~' => {
-                (b as char).to_string()
-            }
-            _ => format!("%{b:02X}"),
-        })
-        .collect()
+    perihelix::daemon::history::encode_path(s)
 }
 
 /// The header lines of a PSV file (everything before the first data row)
