@@ -443,8 +443,19 @@ fn a_full_disk_keeps_the_file_waiting_and_nothing_acknowledged_is_lost() {
     assert_eq!(d.observation_count("2026 ZC9"), Some(50));
 
     // And after a restart, everything acknowledged is still there.
-    assert!(d.stop(Duration::from_secs(30)).success());
+    stop_cleanly(d);
     let d = Running::start(&dir, START);
     assert_eq!(d.observation_count("2026 ZC9"), Some(50));
-    assert!(d.stop(Duration::from_secs(30)).success());
+    stop_cleanly(d);
+}
+
+/// SIGTERM; the daemon must exit 0 (its log in the message if not).
+fn stop_cleanly(d: Running) {
+    let log = d.log.clone();
+    let status = d.stop(Duration::from_secs(30));
+    assert!(
+        status.success(),
+        "exit status {status}:\n{}",
+        std::fs::read_to_string(log).unwrap_or_default()
+    );
 }

@@ -45,7 +45,13 @@ pub struct ApiShared {
     /// Set once the store is open and the first scan is done.
     pub ready: AtomicBool,
     uploads: AtomicU64,
+    /// Store reads in flight at once.
+    reads: tokio::sync::Semaphore,
 }
+
+/// Store reads in flight at once: a few per core keeps the disk and the
+/// cores busy without letting a crowd of clients multiply memory.
+const READS_IN_FLIGHT: usize = 8;
 
 #[derive(Clone)]
 pub struct ApiState(pub Arc<ApiShared>);
@@ -68,6 +74,7 @@ impl ApiState {
             staging,
             ready: AtomicBool::new(false),
             uploads: AtomicU64::new(0),
+            reads: tokio::sync::Semaphore::new(READS_IN_FLIGHT),
         }))
     }
 }
@@ -296,6 +303,13 @@ async fn blocking<T: Send + 'static>(
     f: impl FnOnce(&dyn Store) -> Result<T, crate::store::StoreError> + Send + 'static,
 ) -> Result<T, ApiError> {
     let store = s.0.store.clone();
+    // Reads in flight are capped: a crowd of clients then queues here, in
+    // a few bytes each, rather than as a blocking thread each holding its
+    // answer.
+    let _permit =
+        s.0.reads.acquire().await.map_err(|e| {
+            ApiError::new(StatusCode::SERVICE_UNAVAILABLE, "stopping", e.to_string())
+        })?;
     tokio::task::spawn_blocking(move || f(store.as_ref()))
         .await
         .map_err(|e| {
@@ -392,22 +406,24 @@ async fn solutions(
     let (since, until, model) = (page.since, page.until, page.model);
     // Newest first, "before sequence number N" as the cursor: solutions
     // added while a client pages never shift the pages it has not read.
+    // Only summaries are read, in batches, until the page is full.
     let (list, next) = blocking(&s, move |store| {
         let mut out = Vec::new();
         let mut before = before;
+        let batch_size = limit.max(64);
         loop {
-            let batch = store.solutions(&oid, before, MAX_PAGE)?;
-            let exhausted = batch.len() < MAX_PAGE;
-            for r in batch {
-                before = Some(r.seq);
-                let t = r.summary.created_utc.as_str();
+            let batch = store.summaries(&oid, before, batch_size)?;
+            let exhausted = batch.len() < batch_size;
+            for summary in batch {
+                before = Some(summary.seq);
+                let t = summary.created_utc.as_str();
                 let keep = since.as_deref().is_none_or(|x| t >= x)
                     && until.as_deref().is_none_or(|x| t < x)
                     && model
                         .as_deref()
-                        .is_none_or(|m| r.summary.recommended.as_deref() == Some(m));
+                        .is_none_or(|m| summary.recommended.as_deref() == Some(m));
                 if keep {
-                    out.push(r.summary);
+                    out.push(summary);
                     if out.len() == limit {
                         let more = before.is_some_and(|b| b > 1);
                         return Ok((out, more.then(|| b_to_string(before))));
@@ -431,32 +447,46 @@ fn b_to_string(before: Option<u64>) -> String {
     before.map(|b| b.to_string()).unwrap_or_default()
 }
 
+/// A stored record served as the bytes the store holds (it is JSON
+/// already): no decoding and encoding of a large document per request.
+fn json_bytes(bytes: Vec<u8>) -> Response {
+    (
+        [(axum::http::header::CONTENT_TYPE, "application/json")],
+        bytes,
+    )
+        .into_response()
+}
+
 async fn latest_solution(
     State(s): State<ApiState>,
     Path(id): Path<String>,
-) -> Result<Json<crate::store::SolutionRecord>, ApiError> {
+) -> Result<Response, ApiError> {
     let object = find_object(&s, id).await?;
     let oid = object.id.clone();
-    let latest = blocking(&s, move |store| store.solutions(&oid, None, 1)).await?;
+    let latest = blocking(&s, move |store| {
+        match store.summaries(&oid, None, 1)?.first() {
+            Some(summary) => store.solution_bytes(&oid, summary.seq),
+            None => Ok(None),
+        }
+    })
+    .await?;
     latest
-        .into_iter()
-        .next()
-        .map(Json)
+        .map(json_bytes)
         .ok_or_else(|| ApiError::not_found(format!("object {} has no solution yet", object.id)))
 }
 
 async fn solution(
     State(s): State<ApiState>,
     Path((id, seq)): Path<(String, String)>,
-) -> Result<Json<crate::store::SolutionRecord>, ApiError> {
+) -> Result<Response, ApiError> {
     let seq: u64 = seq.parse().map_err(|_| {
         ApiError::bad_request("bad_sequence", format!("'{seq}' is not a solution number"))
     })?;
     let object = find_object(&s, id).await?;
     let oid = object.id.clone();
-    blocking(&s, move |store| store.solution(&oid, seq))
+    blocking(&s, move |store| store.solution_bytes(&oid, seq))
         .await?
-        .map(Json)
+        .map(json_bytes)
         .ok_or_else(|| ApiError::not_found(format!("object {} has no solution {seq}", object.id)))
 }
 

@@ -113,11 +113,7 @@ fn from_store(config: &Config, name: &str) -> Result<History, HistoryError> {
     let object = store
         .object(name)?
         .ok_or_else(|| HistoryError::UnknownObject(name.to_string()))?;
-    let mut solutions: Vec<SolutionSummary> = store
-        .solutions(&object.id, None, usize::MAX)?
-        .into_iter()
-        .map(|r| r.summary)
-        .collect();
+    let mut solutions: Vec<SolutionSummary> = store.summaries(&object.id, None, usize::MAX)?;
     solutions.reverse();
     Ok(History {
         object,

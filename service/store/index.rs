@@ -7,6 +7,7 @@
 //! - `solutions`: object id / sequence (u64 BE) -> [`SolutionRecord`]
 //!   without its residuals, which are large
 //! - `residuals`: the same key -> the residual list of that solution
+//! - `summaries`: the same key -> the solution's [`SolutionSummary`] alone
 //! - `overrides`: object id / journal seq (u64 BE) -> an analyst's decision
 //! - `names`: designation text -> object id (lookup by any designation)
 //! - `links`: journal seq (u64 BE) / index (u32 BE) -> designation group,
@@ -32,11 +33,13 @@ use crate::ingest::{DesignationKey, Linker, ObjectId};
 use super::error::StoreError;
 use super::records::{
     IndexedObservation, JournalEntry, JournalLine, ObjectState, ObservationEntry, OverrideAction,
-    OverrideRecord, SolutionRecord,
+    OverrideRecord, SolutionRecord, SolutionSummary,
 };
 
-/// The schema this program writes. Version 1: the trees above.
-pub const SCHEMA_VERSION: u32 = 1;
+/// The schema this program writes. Version 1: the trees above but
+/// `summaries`; version 2 adds `summaries`, so that a history page reads
+/// a few hundred bytes per solution instead of its whole document.
+pub const SCHEMA_VERSION: u32 = 2;
 
 /// sled's cache; its default (1 GiB) would let the daemon grow far beyond
 /// what an observatory machine should give it.
@@ -55,6 +58,7 @@ pub struct Index {
     content: Tree,
     objects: Tree,
     solutions: Tree,
+    summaries: Tree,
     residuals: Tree,
     overrides: Tree,
     names: Tree,
@@ -145,6 +149,7 @@ impl Index {
             content: tree("content")?,
             objects: tree("objects")?,
             solutions: tree("solutions")?,
+            summaries: tree("summaries")?,
             residuals: tree("residuals")?,
             overrides: tree("overrides")?,
             names: tree("names")?,
@@ -194,8 +199,6 @@ impl Index {
                         path: self.path.clone(),
                         why: "the schema version is unreadable".into(),
                     })?;
-                // Migrations from older versions go here, one step each;
-                // version 1 is the first.
                 if found > SCHEMA_VERSION {
                     return Err(StoreError::Schema {
                         path: self.path.clone(),
@@ -203,9 +206,31 @@ impl Index {
                         known: SCHEMA_VERSION,
                     });
                 }
+                // Migrations from older versions, one step each.
+                if found < 2 {
+                    self.migrate_to_summaries()?;
+                }
+                self.meta
+                    .insert(META_SCHEMA, &SCHEMA_VERSION.to_be_bytes())?;
                 Ok(())
             }
         }
+    }
+
+    /// Version 1 to 2: every stored solution's summary into `summaries`.
+    fn migrate_to_summaries(&self) -> Result<(), StoreError> {
+        let mut n = 0;
+        for item in self.solutions.iter() {
+            let (k, v) = item?;
+            let record: SolutionRecord = decode("solutions", &v)?;
+            self.summaries.insert(k, encode(&record.summary)?)?;
+            n += 1;
+        }
+        tracing::info!(
+            solutions = n,
+            "index migrated to schema 2 (solution summaries)"
+        );
+        Ok(())
     }
 
     fn load_linker(&self) -> Result<(), StoreError> {
@@ -515,6 +540,7 @@ impl Index {
             .unwrap_or(serde_json::Value::Array(Vec::new()));
         let residuals = encode(&residuals)?;
         let value = encode(&slim)?;
+        let summary = encode(&record.summary)?;
         let mut state: ObjectState = match self.objects.get(record.object_id.as_bytes())? {
             Some(v) => decode("objects", &v)?,
             None => ObjectState::new(&ObjectId(record.object_id.clone())),
@@ -528,19 +554,25 @@ impl Index {
             }
         }
         let state = encode(&state)?;
-        let result = (&self.solutions, &self.residuals, &self.objects, &self.meta).transaction(
-            |(solutions, residuals_t, objects, meta)| {
-                // History is never overwritten: an entry already there
-                // (a replay) is left as it is.
-                if solutions.get(key.as_slice())?.is_none() {
-                    solutions.insert(key.as_slice(), value.as_slice())?;
-                    residuals_t.insert(key.as_slice(), residuals.as_slice())?;
-                    objects.insert(record.object_id.as_bytes(), state.as_slice())?;
-                }
-                meta.insert(META_APPLIED, applied)?;
-                Ok::<_, ConflictableTransactionError<()>>(())
-            },
+        let trees = (
+            &self.solutions,
+            &self.summaries,
+            &self.residuals,
+            &self.objects,
+            &self.meta,
         );
+        let result = trees.transaction(|(solutions, summaries, residuals_t, objects, meta)| {
+            // History is never overwritten: an entry already there
+            // (a replay) is left as it is.
+            if solutions.get(key.as_slice())?.is_none() {
+                solutions.insert(key.as_slice(), value.as_slice())?;
+                summaries.insert(key.as_slice(), summary.as_slice())?;
+                residuals_t.insert(key.as_slice(), residuals.as_slice())?;
+                objects.insert(record.object_id.as_bytes(), state.as_slice())?;
+            }
+            meta.insert(META_APPLIED, applied)?;
+            Ok::<_, ConflictableTransactionError<()>>(())
+        });
         tx_result(result)
     }
 
@@ -634,6 +666,33 @@ impl Index {
             }
         }
         Ok(out)
+    }
+
+    /// Summaries of an object's solutions, newest first, with sequence
+    /// numbers below `before` (all when None), at most `limit`: what a
+    /// history page needs, without decoding any document.
+    pub fn summaries(
+        &self,
+        id: &str,
+        before: Option<u64>,
+        limit: usize,
+    ) -> Result<Vec<SolutionSummary>, StoreError> {
+        let start = solution_key(id, 0);
+        let end = solution_key(id, before.unwrap_or(u64::MAX));
+        let mut out = Vec::new();
+        for item in self.summaries.range(start..end).rev().take(limit) {
+            let (_, v) = item?;
+            out.push(decode("summaries", &v)?);
+        }
+        Ok(out)
+    }
+
+    /// One solution record as stored (JSON), to be served as it is.
+    pub fn solution_bytes(&self, id: &str, seq: u64) -> Result<Option<Vec<u8>>, StoreError> {
+        Ok(self
+            .solutions
+            .get(solution_key(id, seq))?
+            .map(|v| v.to_vec()))
     }
 
     pub fn solution(&self, id: &str, seq: u64) -> Result<Option<SolutionRecord>, StoreError> {

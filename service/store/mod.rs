@@ -63,6 +63,15 @@ pub trait Store: Send + Sync {
         limit: usize,
     ) -> Result<Vec<SolutionRecord>, StoreError>;
     fn solution(&self, id: &str, seq: u64) -> Result<Option<SolutionRecord>, StoreError>;
+    /// Summaries only, newest first, below `before`, at most `limit`.
+    fn summaries(
+        &self,
+        id: &str,
+        before: Option<u64>,
+        limit: usize,
+    ) -> Result<Vec<SolutionSummary>, StoreError>;
+    /// One solution record as its stored JSON.
+    fn solution_bytes(&self, id: &str, seq: u64) -> Result<Option<Vec<u8>>, StoreError>;
     /// Journals an analyst's decision (fsync), then indexes it.
     fn add_override(&self, record: OverrideRecord) -> Result<ObservationsApplied, StoreError>;
     /// An object's decisions in the order they were made.
@@ -275,6 +284,19 @@ impl Store for SledStore {
 
     fn solution(&self, id: &str, seq: u64) -> Result<Option<SolutionRecord>, StoreError> {
         self.index.solution(id, seq)
+    }
+
+    fn summaries(
+        &self,
+        id: &str,
+        before: Option<u64>,
+        limit: usize,
+    ) -> Result<Vec<SolutionSummary>, StoreError> {
+        self.index.summaries(id, before, limit)
+    }
+
+    fn solution_bytes(&self, id: &str, seq: u64) -> Result<Option<Vec<u8>>, StoreError> {
+        self.index.solution_bytes(id, seq)
     }
 
     fn residuals(&self, id: &str, seq: u64) -> Result<Option<serde_json::Value>, StoreError> {

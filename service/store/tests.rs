@@ -111,6 +111,18 @@ fn solutions_keep_their_sequence_and_survive_reopen_and_rebuild() {
         "newest first"
     );
     assert_eq!(store.solutions(&id, Some(2), 10).unwrap()[0].seq, 1);
+    // The summaries tree says what the records say, without the documents.
+    let summaries = store.summaries(&id, None, 10).unwrap();
+    let records: Vec<SolutionSummary> = store
+        .solutions(&id, None, 10)
+        .unwrap()
+        .into_iter()
+        .map(|r| r.summary)
+        .collect();
+    assert_eq!(summaries, records);
+    let bytes = store.solution_bytes(&id, 2).unwrap().unwrap();
+    let parsed: SolutionRecord = serde_json::from_slice(&bytes).unwrap();
+    assert_eq!(parsed.seq, 2);
     drop(store);
     // Without its index, the journal alone gives the same store.
     std::fs::remove_dir_all(index_dir(dir.path())).unwrap();
