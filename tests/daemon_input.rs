@@ -335,6 +335,63 @@ fn a_big_file_is_taken_in_chunks_with_bounded_memory() {
     assert!(d.stop(Duration::from_secs(30)).success());
 }
 
+/// Observations in the daemon's journal, counted entry by entry.
+fn journaled_observations(dir: &DaemonDir) -> (usize, usize) {
+    let journal = std::fs::read_to_string(dir.path("db/journal/journal.jsonl")).unwrap_or_default();
+    let mut entries = 0;
+    let mut observations = 0;
+    for line in journal.lines() {
+        let entry: Value = serde_json::from_str(line).expect("a journal entry");
+        entries += 1;
+        observations += entry["observations"].as_array().map_or(0, Vec::len);
+    }
+    (entries, observations)
+}
+
+#[test]
+fn a_stop_in_the_middle_of_a_big_file_leaves_it_for_the_next_start() {
+    let dir = DaemonDir::new(NO_REFIT);
+    let d = Running::start(&dir, START);
+    let mut bad_lines = Vec::new();
+    dir.drop_streamed("big.psv", |out| {
+        bad_lines = write_big(out)?;
+        Ok(())
+    });
+    // Stop as soon as the first chunk is journaled: the file has about
+    // 150 chunks to go (write_big), so the stop lands between two of them.
+    poll_until(
+        "the first chunk in the journal",
+        BIG_TAKE,
+        Duration::from_millis(10),
+        || {
+            (dir.path("db/journal/journal.jsonl")
+                .metadata()
+                .map_or(0, |m| m.len())
+                > 0)
+            .then_some(())
+        },
+    );
+    stop_cleanly(d);
+    assert!(dir.path("incoming/big.psv").is_file(), "the file stays");
+    let (entries, stored) = journaled_observations(&dir);
+    assert!(
+        entries >= 1 && stored < BIG_ROWS,
+        "{entries} entries, {stored} observations"
+    );
+    assert!(in_archive(&dir, "big.psv").is_none());
+
+    // The next start takes the whole file; what the first run stored is
+    // found stored, so every observation is in the journal exactly once.
+    let d = Running::start(&dir, START);
+    wait_taken(&dir, &d, "big.psv", BIG_TAKE);
+    assert!(in_archive(&dir, "big.psv").is_some());
+    assert_eq!(d.observation_count(BIG_OBJECT), Some(BIG_ROWS as u64));
+    assert_eq!(journaled_observations(&dir).1, BIG_ROWS);
+    let report = dir.errors_report("big.psv").expect("a report");
+    assert_eq!(report["lines_rejected"], bad_lines.len() as u64);
+    stop_cleanly(d);
+}
+
 /// A small tmpfs mounted on a directory for as long as it lives (we run as
 /// root); unmounted when dropped, whatever happened.
 struct Tmpfs {

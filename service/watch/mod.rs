@@ -10,8 +10,10 @@
 //! - Hidden and temporary names (`.*`, `*.part`, `*.tmp`) are never taken:
 //!   write under such a name and rename when done.
 //!
-//! Files are taken one at a time ([`take`]), off the async executor. Taking
-//! is idempotent, so a file seen by an event and by a scan is harmless.
+//! Files are taken one at a time ([`take`]), off the async executor, a big
+//! one in chunks: each chunk feeds the watchdog's heartbeat, and a stop
+//! between chunks leaves the file for the next start. Taking is
+//! idempotent, so a file seen by an event and by a scan is harmless.
 //! When the store cannot write (a full disk), the file stays and is tried
 //! again after [`RETRY`].
 

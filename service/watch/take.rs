@@ -23,7 +23,7 @@ use serde::Serialize;
 
 use crate::config::{Config, Directories};
 use crate::ingest::stream::{self, ChunkedFile, Limits, Refused};
-use crate::ingest::{Observation, Rejection};
+use crate::ingest::{ContentKey, DesignationKey, Observation, Rejection};
 use crate::store::journal::sync_dir;
 use crate::store::{ObservationEntry, Origin, Store, StoreError};
 
@@ -363,22 +363,20 @@ fn store_chunk(
 ) -> Result<(), TakeError> {
     let mut entries = Vec::with_capacity(observations.len());
     // Each observation is dropped as its entry is made, so the chunk is
-    // never held twice.
+    // never held twice; one stored already makes no entry at all.
     for o in observations {
-        let entry = ObservationEntry::of(&o);
-        let content = entry.content_bytes().map_err(|why| TakeError::Io {
-            file: path.to_path_buf(),
-            why,
-        })?;
-        if store.has_observation(&content).map_err(store_error(path))? {
-            stored.duplicates += 1;
-            if stored.found_stored.len() < STORED_DESIGNATIONS {
-                if let Some(d) = entry.designations.first() {
-                    stored.found_stored.insert(d.clone());
-                }
+        if !store
+            .has_observation(&ContentKey::of(&o).0)
+            .map_err(store_error(path))?
+        {
+            entries.push(ObservationEntry::of(&o));
+            continue;
+        }
+        stored.duplicates += 1;
+        if stored.found_stored.len() < STORED_DESIGNATIONS {
+            if let Some(d) = DesignationKey::of(&o).first() {
+                stored.found_stored.insert(d.to_string());
             }
-        } else {
-            entries.push(entry);
         }
     }
     if entries.is_empty() {

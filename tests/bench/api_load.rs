@@ -751,45 +751,28 @@ fn met(ok: bool) -> &'static str {
 /// What a profile of the daemon under this load showed. Taken by hand
 /// (not by this program), so it names its date; re-profile when the
 /// figures above move.
-const PROFILE: &str = "Profile (perf at 299 Hz with call graphs, 15 s of the daemon under this
-load, taken by hand on 2026-12-03 while the figures above were of the same
-size): 92% of the daemon's CPU is the solution list. `Index::solutions`
-decodes each of the 50 records whole, its document into a
-`serde_json::Value` tree (61%: malloc, B-tree inserts, string and float
-parsing), and the handler keeps only the summaries and drops the documents
-(about 30%: free, B-tree teardown, malloc_consolidate). The single-record
-route is about 5% (decode and encode of one record), hyper about 4%, the
-kernel (sled's reads come from the page cache) about 3%. One list answer
-of 23 kB therefore costs parsing 2.2 MB of stored JSON, 50 times what one
-whole record costs; and the handler reads up to 1,000 records per page
-whatever the `limit`, so on an object with a longer history each page
-would cost up to 20 times more again.
+const PROFILE: &str = "History: the first run of this bench (2026-12-03, before the changes
+below) gave 85 requests/s, p99 4.6 s and a peak of 1.07 GB. A profile then
+(perf at 299 Hz with call graphs, taken by hand) put 92% of the daemon's
+CPU in the solution list: each page decoded 50 whole records (documents
+of 44 kB) to return their summaries, and read up to 1,000 records whatever
+the `limit`; store reads ran on as many blocking threads as clients
+waited, each holding its decoded documents. Since then (schema 2) the
+summaries have a tree of their own and a page reads `limit` of them, a
+record is served as the JSON bytes the index holds (no decode and encode),
+and at most 8 store reads are in flight. The figures above are after
+those changes.
 
-Memory, from the one-client steps: a request leaves little behind (the
-same record read again and again), but reading every record once leaves
-the daemon holding about as much as the records it read (the solutions
-tree is 5,000 x 44 kB = 220 MB), although the store gives sled a
-`cache_capacity` of 32 MiB: sled counts that cap in its own units, and what
-it keeps resident is several times it (a known trait of sled 0.34).
-This is read from the pattern, not from a heap profile. Under load, store
-reads run on tokio's blocking pool, which starts a thread for each read
-that finds none idle, so about as many list requests decode at once as
-clients wait for one, each holding its 50 decoded documents: that takes
-the peak to about a gigabyte. glibc keeps what they free in its
-per-thread arenas, so VmRSS stays near the peak after the load.
-
-Left to do (in the service, biggest first): (1) the list should not decode
-documents: keep the summaries in a tree of their own (or read records with
-the document left as raw JSON) and read `limit` rows, not 1,000; that also
-keeps list pages from pulling documents into sled's cache; (2) one record
-could be served from the index's stored JSON bytes without a decode and
-encode; (3) bound the store reads in flight (about the number of cores) so
-memory no longer grows with the clients; (4) a smaller sled
-`cache_capacity`, chosen by measured resident memory rather than by the
-cap's nominal size. Even then a closed loop of 200 clients without pauses
-has a mean latency of 200 / throughput: a p99 under 20 ms would need well
-over 10,000 requests/s on two cores shared with the clients, so the target
-needs a stated request rate to be testable.";
+What remains: memory grows with the records read once (the one-client
+steps: every record once leaves about as much resident as the records
+read, 220 MB here) although the store gives sled a `cache_capacity` of
+32 MiB: sled counts that cap in its own units and keeps several times it
+resident (a known trait of sled 0.34); a smaller cap, chosen by measured
+resident memory, is the next thing to try, and is why the unit file should
+set MemoryMax=. And a closed loop of 200 clients without pauses has a mean
+latency of 200 / throughput (44 ms at 4,544 requests/s): a p99 under
+20 ms would need well over 10,000 requests/s on two cores shared with the
+clients, so that target needs a stated request rate to be testable.";
 
 fn section(f: &Figures) -> String {
     let (stamp, _) = perihelix::watch::clock::now_utc();

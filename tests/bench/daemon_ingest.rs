@@ -166,9 +166,9 @@ period 3600 s), renames the file into the incoming directory and polls
 until it is in the archive. Memory is the daemon's own: VmHWM (peak
 resident) from /proc/PID/status before the file and after it was taken,
 and the largest VmRSS sampled every 0.1 s meanwhile. Measured {day} on the
-shared development machine ({cores} cores, load average {load} at the end:
-other builds were running, so the time varies by tens of percent; the
-memory does not), bench profile.
+shared development machine ({cores} cores, load average {load} at the end;
+with other builds running the time varies by tens of percent, the memory
+by about 10%), bench profile.
 
 | what | figure |
 |---|---|
