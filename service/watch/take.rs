@@ -270,22 +270,38 @@ fn store_error(file: &Path) -> impl Fn(StoreError) -> TakeError + '_ {
 /// Writes `bytes` to `path` durably (file and directory fsync'd).
 fn write_durably(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
     use std::io::Write;
-    let mut f = std::fs::File::create(path)?;
+    // Under a hidden name first, renamed when whole: a crash mid-write
+    // never leaves a truncated file under the final name.
+    let part = hidden_sibling(path);
+    let mut f = std::fs::File::create(&part)?;
     f.write_all(bytes)?;
     f.sync_all()?;
+    std::fs::rename(&part, path)?;
     if let Some(dir) = path.parent() {
         sync_dir(dir)?;
     }
     Ok(())
 }
 
+/// `dir/.NAME.part` for `dir/NAME`.
+fn hidden_sibling(path: &Path) -> std::path::PathBuf {
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_default();
+    path.with_file_name(format!(".{name}.part"))
+}
+
 /// Moves `from` to `to` (a rename within one file system, else a durable
 /// copy and a removal) and makes both directories durable.
 fn move_durably(from: &Path, to: &Path) -> std::io::Result<()> {
     if std::fs::rename(from, to).is_err() {
-        // Copied, not read whole: the file may be of any size.
-        std::fs::copy(from, to)?;
-        std::fs::File::open(to)?.sync_all()?;
+        // Copied, not read whole: the file may be of any size; under a
+        // hidden name until it is whole.
+        let part = hidden_sibling(to);
+        std::fs::copy(from, &part)?;
+        std::fs::File::open(&part)?.sync_all()?;
+        std::fs::rename(&part, to)?;
         std::fs::remove_file(from)?;
     }
     for dir in [to.parent(), from.parent()].into_iter().flatten() {
