@@ -106,73 +106,15 @@ pub struct Running {
 pub const TOKEN: &str = "test-token-7f3a";
 
 impl Running {
-    /// Starts `perihelix serve` and waits (at most `limit`) for READY=1.
+    /// Starts `perihelix serve` and waits (at most `limit`) for READY=1;
+    /// a daemon that exits first fails the test with its log.
     pub fn start(dir: &DaemonDir, limit: Duration) -> Self {
-        let socket_dir = tempfile::tempdir().expect("a socket directory");
-        let socket_path = socket_dir.path().join("notify.sock");
-        let socket = UnixDatagram::bind(&socket_path).expect("the notify socket binds");
-        socket
-            .set_read_timeout(Some(Duration::from_millis(200)))
-            .expect("a read timeout");
-        let log = unique(dir.path("daemon.log"));
-        let child = Command::new(env!("CARGO_BIN_EXE_perihelix"))
-            .arg("serve")
-            .arg("--config")
-            .arg(&dir.config)
-            .env("NOTIFY_SOCKET", &socket_path)
-            .env("PERIHELIX_API_TOKEN", TOKEN)
-            .env("RUST_LOG", "info")
-            .stdout(Stdio::null())
-            .stderr(std::fs::File::create(&log).expect("a log file"))
-            .spawn()
-            .expect("the daemon starts");
-        let mut child = child;
-        let mut status = None;
-        let deadline = Instant::now() + limit;
-        let mut buf = [0u8; 4096];
-        loop {
-            if let Ok(Some(exit)) = child.try_wait() {
-                panic!(
-                    "the daemon exited with {exit} before it was ready:\n{}",
-                    std::fs::read_to_string(&log).unwrap_or_default()
-                );
-            }
-            assert!(
-                Instant::now() < deadline,
-                "the daemon was not ready in {limit:?}"
-            );
-            if let Ok(n) = socket.recv(&mut buf) {
-                let text = String::from_utf8_lossy(&buf[..n]).to_string();
-                let mut ready = false;
-                for line in text.lines() {
-                    if line == "READY=1" {
-                        ready = true;
-                    }
-                    if let Some(s) = line.strip_prefix("STATUS=serving on ") {
-                        status = s.parse::<SocketAddr>().ok();
-                    }
-                }
-                if ready {
-                    break;
-                }
-            }
-        }
-        let addr = status.expect("the readiness message names the address");
-        let runtime = tokio::runtime::Builder::new_current_thread()
-            .enable_all()
-            .build()
-            .expect("a runtime for the HTTP client");
-        let client = reqwest::Client::builder()
-            .timeout(Duration::from_secs(30))
-            .build()
-            .expect("an HTTP client");
-        Self {
-            child,
-            addr,
-            _socket_dir: socket_dir,
-            runtime,
-            client,
-            log,
+        match Self::try_start(dir, limit) {
+            Ok(running) => running,
+            Err(refused) => panic!(
+                "the daemon exited with {} before it was ready:\n{}",
+                refused.status, refused.stderr
+            ),
         }
     }
 
