@@ -167,3 +167,37 @@ fn stored_observations_validate_again() {
     let o = entries[0].record.observation(&stations()).unwrap();
     assert_eq!(ObservationEntry::of(&o), entries[0]);
 }
+
+/// History pages are cut by "before sequence number N": solutions stored
+/// while a client pages through never shift the pages it has not read, so
+/// the pages together hold every solution of the first look exactly once.
+#[test]
+fn pages_stay_put_while_solutions_arrive() {
+    let dir = tempfile::tempdir().unwrap();
+    let store = SledStore::open(dir.path()).unwrap();
+    store
+        .add_observations(origin("a.psv"), fixture_entries())
+        .unwrap();
+    let id = store.objects().unwrap()[0].id.clone();
+    let seq = store.journal_seq();
+    for n in 1..=25 {
+        store.add_solution(record(&id, n, seq)).unwrap();
+    }
+    let mut seen = Vec::new();
+    let mut before = None;
+    let mut next_new = 26;
+    loop {
+        let page = store.summaries(&id, before, 7).unwrap();
+        seen.extend(page.iter().map(|s| s.seq));
+        // Two new solutions between every two pages.
+        for _ in 0..2 {
+            store.add_solution(record(&id, next_new, seq)).unwrap();
+            next_new += 1;
+        }
+        match page.last() {
+            Some(last) if page.len() == 7 => before = Some(last.seq),
+            _ => break,
+        }
+    }
+    assert_eq!(seen, (1..=25).rev().collect::<Vec<u64>>());
+}
