@@ -766,10 +766,10 @@ those changes.
 What remains: memory grows with the records read once (the one-client
 steps: every record once leaves about as much resident as the records
 read, 220 MB here) although the store gives sled a `cache_capacity` of
-32 MiB: sled counts that cap in its own units and keeps several times it
-resident (a known trait of sled 0.34); a smaller cap, chosen by measured
-resident memory, is the next thing to try, and is why the unit file should
-set MemoryMax=. And a closed loop of 200 clients without pauses has a mean
+32 MiB. A run with the cap at 8 MiB (2026-12-03) left the same 228 MiB
+after every record once and a similar peak under load, so the cap is not
+what holds it: the next step is a heap profile of those reads, and the unit
+file should set MemoryMax= meanwhile. And a closed loop of 200 clients without pauses has a mean
 latency of 200 / throughput (44 ms at 4,544 requests/s): a p99 under
 20 ms would need well over 10,000 requests/s on two cores shared with the
 clients, so that target needs a stated request rate to be testable.";
