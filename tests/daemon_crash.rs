@@ -33,7 +33,7 @@ use std::time::{Duration, Instant};
 
 use serde_json::{json, Value};
 
-use common::daemon::{encode, poll_until, psv_nights, run_bounded, DaemonDir, Running};
+use common::daemon::{encode, poll_until, psv_file, psv_nights, run_bounded, DaemonDir, Running};
 use common::repo;
 use perihelix::fit::sampling::Gaussian;
 
@@ -96,15 +96,6 @@ fn daemon_dir() -> DaemonDir {
          [ephemeris]\nsource = \"spk\"\npath = \"{}\"",
         spk.display()
     ))
-}
-
-fn file_of(header: &str, rows: &[String]) -> String {
-    let mut text = header.to_string();
-    for r in rows {
-        text.push_str(r);
-        text.push('\n');
-    }
-    text
 }
 
 /// The obsTime of a data row, as the store keeps it (trimmed).
@@ -180,7 +171,7 @@ fn crash_stream() -> Vec<StreamFile> {
         };
         files.push(StreamFile {
             name,
-            text: file_of(&header, &lines),
+            text: psv_file(&header, &lines),
             times: good.iter().map(|r| obs_time(&header, r)).collect(),
             kind,
         });
@@ -558,11 +549,11 @@ fn feed(d: &Running, dir: &DaemonDir) {
     let groups = [&nights[..6], &nights[6..20], &nights[20..]];
     for (k, group) in groups.iter().enumerate() {
         let rows: Vec<String> = group.iter().flat_map(|(_, r)| r.clone()).collect();
-        dir.drop_file(&format!("group-{k}.psv"), &file_of(&header, &rows));
+        dir.drop_file(&format!("group-{k}.psv"), &psv_file(&header, &rows));
         if k == 1 {
             let (h2, n2) = psv_nights(&repo().join(SECOND_FIXTURE));
             let rows: Vec<String> = n2[..8].iter().flat_map(|(_, r)| r.clone()).collect();
-            dir.drop_file("second-body.psv", &file_of(&h2, &rows));
+            dir.drop_file("second-body.psv", &psv_file(&h2, &rows));
         }
         wait_settled(d, dir);
     }
@@ -769,7 +760,7 @@ fn a_damaged_store_is_refused_with_its_remedy_and_a_second_daemon_is_told_it_is_
     let before = d.observation_count(OBJECT).expect("the object is known");
     // A night the feed already sent, in a new file: taken (archived), and
     // stored as nothing new.
-    dir.drop_file("again.psv", &file_of(&header, &nights[3].1));
+    dir.drop_file("again.psv", &psv_file(&header, &nights[3].1));
     poll_until("the first daemon to take a file", SETTLE, POLL, || {
         (dir.files_under("incoming").is_empty() && settled(&d, &dir)).then_some(())
     });

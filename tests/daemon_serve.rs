@@ -11,7 +11,7 @@ use std::time::Duration;
 
 use serde_json::Value;
 
-use common::daemon::{poll_until, psv_nights, DaemonDir, Running, TOKEN};
+use common::daemon::{poll_until, psv_file, psv_nights, DaemonDir, Running, TOKEN};
 use common::repo;
 
 const FIXTURE: &str = "tests/reference/fixtures/synthetic/hyperbolic_outgassing/noisy.psv";
@@ -22,15 +22,6 @@ const OBJECT: &str = "2026 ZB1";
 const START: Duration = Duration::from_secs(60);
 const FIT: Duration = Duration::from_secs(240);
 const POLL: Duration = Duration::from_millis(200);
-
-fn file_of(header: &str, rows: &[String]) -> String {
-    let mut text = header.to_string();
-    for r in rows {
-        text.push_str(r);
-        text.push('\n');
-    }
-    text
-}
 
 /// Solutions stored so far (0 when the object is not known yet).
 fn solution_count(d: &Running) -> usize {
@@ -84,7 +75,7 @@ fn nights_arrive_and_each_quiet_period_gives_one_solution() {
     let mut sent = 0;
     let first: Vec<String> = nights[..6].iter().flat_map(|(_, r)| r.clone()).collect();
     sent += first.len();
-    dir.drop_file("nights-01-06.psv", &file_of(&header, &first));
+    dir.drop_file("nights-01-06.psv", &psv_file(&header, &first));
     let s1 = wait_for_solution(&d, 1);
     assert_eq!(
         s1["summary"]["observations"].as_u64(),
@@ -93,7 +84,7 @@ fn nights_arrive_and_each_quiet_period_gives_one_solution() {
     );
     for (k, (date, rows)) in nights[6..8].iter().enumerate() {
         sent += rows.len();
-        dir.drop_file(&format!("night-{date}.psv"), &file_of(&header, rows));
+        dir.drop_file(&format!("night-{date}.psv"), &psv_file(&header, rows));
         let s = wait_for_solution(&d, 2 + k);
         assert_eq!(s["summary"]["observations"].as_u64(), Some(sent as u64));
         assert_eq!(s["summary"]["trigger"], "new-observations");
@@ -104,7 +95,7 @@ fn nights_arrive_and_each_quiet_period_gives_one_solution() {
     let per_file = rest.len().div_ceil(200);
     let mut files = 0;
     for (i, chunk) in rest.chunks(per_file).enumerate() {
-        dir.drop_file(&format!("burst-{i:03}.psv"), &file_of(&header, chunk));
+        dir.drop_file(&format!("burst-{i:03}.psv"), &psv_file(&header, chunk));
         files += 1;
     }
     assert!((150..=200).contains(&files), "{files} files");
@@ -413,7 +404,7 @@ fn analysts_overrides_are_kept_and_change_the_next_fit() {
     let d = Running::start(&dir, START);
     let (header, nights) = psv_nights(&repo().join(FIXTURE));
     let rows: Vec<String> = nights[..8].iter().flat_map(|(_, r)| r.clone()).collect();
-    dir.drop_file("nights-01-08.psv", &file_of(&header, &rows));
+    dir.drop_file("nights-01-08.psv", &psv_file(&header, &rows));
     let first = wait_for_solution(&d, 1);
     let n = first["summary"]["observations"].as_u64().unwrap();
     let object = common::daemon::encode(OBJECT);

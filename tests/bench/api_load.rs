@@ -29,8 +29,8 @@ use std::time::{Duration, Instant};
 use serde_json::Value;
 
 use common::daemon::{
-    encode, invented_row, invented_time, proc_status_kib, run_bounded, DaemonDir, Running,
-    INVENTED_COLUMNS, INVENTED_STATIONS,
+    bytes_under, encode, invented_row, invented_time, mib, proc_status_kib, run_bounded, DaemonDir,
+    Running, INVENTED_COLUMNS, INVENTED_STATIONS,
 };
 use perihelix::config::Config;
 use perihelix::fit::sampling::Gaussian;
@@ -77,25 +77,6 @@ fn env_or<T: std::str::FromStr>(name: &str, default: T) -> T {
         .ok()
         .and_then(|v| v.parse().ok())
         .unwrap_or(default)
-}
-
-fn mib(kib: u64) -> f64 {
-    kib as f64 / 1024.0
-}
-
-/// Bytes under a directory, recursively.
-fn bytes_under(dir: &Path) -> u64 {
-    let Ok(entries) = std::fs::read_dir(dir) else {
-        return 0;
-    };
-    entries
-        .flatten()
-        .map(|e| match e.metadata() {
-            Ok(m) if m.is_dir() => bytes_under(&e.path()),
-            Ok(m) => m.len(),
-            Err(_) => 0,
-        })
-        .sum()
 }
 
 /// CPU seconds (user + system, all threads) of a process so far, from

@@ -126,16 +126,8 @@ fn table(rows: &[Row]) -> String {
 }
 
 fn main() {
-    let realisations = match std::env::var("PERIHELIX_CALIBRATION_REALISATIONS") {
-        Ok(v) => match v.parse::<usize>() {
-            Ok(n) if n > 0 => n,
-            _ => {
-                eprintln!("PERIHELIX_CALIBRATION_REALISATIONS={v} is not a positive count");
-                std::process::exit(2);
-            }
-        },
-        Err(_) => DEFAULT_REALISATIONS,
-    };
+    let realisations =
+        common::count_from_env("PERIHELIX_CALIBRATION_REALISATIONS", DEFAULT_REALISATIONS);
     let out = std::env::var("PERIHELIX_CALIBRATION_OUT")
         .map(std::path::PathBuf::from)
         .unwrap_or_else(|_| common::repo().join("docs/accuracy.md"));

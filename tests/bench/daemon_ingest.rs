@@ -16,11 +16,11 @@
 #[path = "../common/mod.rs"]
 mod common;
 
-use std::path::Path;
 use std::time::{Duration, Instant};
 
 use common::daemon::{
-    poll_until, proc_status_kib, write_invented_psv, DaemonDir, Running, INVENTED_OBJECT,
+    bytes_under, mib, poll_until, proc_status_kib, write_invented_psv, DaemonDir, Running,
+    INVENTED_OBJECT,
 };
 
 const DEFAULT_ROWS: usize = 700_000;
@@ -38,25 +38,6 @@ fn env_or<T: std::str::FromStr>(name: &str, default: T) -> T {
         .ok()
         .and_then(|v| v.parse().ok())
         .unwrap_or(default)
-}
-
-/// Bytes under a directory, recursively.
-fn bytes_under(dir: &Path) -> u64 {
-    let Ok(entries) = std::fs::read_dir(dir) else {
-        return 0;
-    };
-    entries
-        .flatten()
-        .map(|e| match e.metadata() {
-            Ok(m) if m.is_dir() => bytes_under(&e.path()),
-            Ok(m) => m.len(),
-            Err(_) => 0,
-        })
-        .sum()
-}
-
-fn mib(kib: u64) -> f64 {
-    kib as f64 / 1024.0
 }
 
 /// A count with thousands separators, as the other sections write them.

@@ -52,19 +52,6 @@ const CONFIGS: [StressConfig; 4] = [
     },
 ];
 
-fn count_from_env(name: &str, default: usize) -> usize {
-    match std::env::var(name) {
-        Ok(v) => match v.parse::<usize>() {
-            Ok(n) if n > 0 => n,
-            _ => {
-                eprintln!("{name}={v} is not a positive count");
-                std::process::exit(2);
-            }
-        },
-        Err(_) => default,
-    }
-}
-
 /// Every draw of one body in one configuration, over `threads` threads.
 fn run(
     body: &Synthetic,
@@ -147,8 +134,8 @@ impl Row {
 
 fn main() {
     // `cargo bench` passes --bench; nothing else is taken.
-    let draws = count_from_env("PERIHELIX_STRESS_DRAWS", 200);
-    let threads = count_from_env("PERIHELIX_STRESS_THREADS", 2);
+    let draws = common::count_from_env("PERIHELIX_STRESS_DRAWS", 200);
+    let threads = common::count_from_env("PERIHELIX_STRESS_THREADS", 2);
     let out = std::env::var("PERIHELIX_STRESS_OUT")
         .map(std::path::PathBuf::from)
         .unwrap_or_else(|_| common::repo().join("docs/accuracy.md"));

@@ -124,6 +124,16 @@ impl Running {
 
     /// GET; the status and the body as JSON (Null when not JSON).
     pub fn get(&self, path: &str) -> (u16, Value) {
+        let (status, text) = self.get_raw(path);
+        (status, serde_json::from_str(&text).unwrap_or(Value::Null))
+    }
+
+    /// GET; the body as text.
+    pub fn get_text(&self, path: &str) -> String {
+        self.get_raw(path).1
+    }
+
+    fn get_raw(&self, path: &str) -> (u16, String) {
         let url = self.url(path);
         self.runtime.block_on(async {
             let r = self
@@ -133,22 +143,7 @@ impl Running {
                 .await
                 .expect("the daemon answers");
             let status = r.status().as_u16();
-            let text = r.text().await.unwrap_or_default();
-            (status, serde_json::from_str(&text).unwrap_or(Value::Null))
-        })
-    }
-
-    /// GET; the body as text.
-    pub fn get_text(&self, path: &str) -> String {
-        let url = self.url(path);
-        self.runtime.block_on(async {
-            let r = self
-                .client
-                .get(&url)
-                .send()
-                .await
-                .expect("the daemon answers");
-            r.text().await.unwrap_or_default()
+            (status, r.text().await.unwrap_or_default())
         })
     }
 
@@ -568,4 +563,34 @@ pub fn run_bounded(
     };
     let read = |p: &Path| std::fs::read_to_string(p).unwrap_or_default();
     (status, read(&out_path), read(&err_path))
+}
+
+/// Bytes under a directory, recursively (0 where it cannot be read).
+pub fn bytes_under(dir: &Path) -> u64 {
+    let Ok(entries) = std::fs::read_dir(dir) else {
+        return 0;
+    };
+    entries
+        .flatten()
+        .map(|e| match e.metadata() {
+            Ok(m) if m.is_dir() => bytes_under(&e.path()),
+            Ok(m) => m.len(),
+            Err(_) => 0,
+        })
+        .sum()
+}
+
+/// KiB (as /proc/PID/status gives them) in MiB.
+pub fn mib(kib: u64) -> f64 {
+    kib as f64 / 1024.0
+}
+
+/// A PSV file: `header` (with its newline) and then `rows`, one a line.
+pub fn psv_file(header: &str, rows: &[String]) -> String {
+    let mut text = header.to_string();
+    for r in rows {
+        text.push_str(r);
+        text.push('\n');
+    }
+    text
 }

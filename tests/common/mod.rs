@@ -415,3 +415,18 @@ pub fn write_section(path: &Path, name: &str, content: &str) -> std::io::Result<
     };
     std::fs::write(path, new)
 }
+
+/// A positive count from the environment variable `name`, else `default`;
+/// a value that is not one ends the bench with a message (exit 2).
+pub fn count_from_env(name: &str, default: usize) -> usize {
+    match std::env::var(name) {
+        Ok(v) => match v.parse::<usize>() {
+            Ok(n) if n > 0 => n,
+            _ => {
+                eprintln!("{name}={v} is not a positive count");
+                std::process::exit(2);
+            }
+        },
+        Err(_) => default,
+    }
+}
