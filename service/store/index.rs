@@ -407,16 +407,24 @@ impl Index {
                 Ok(())
             };
         // Merged objects bring their observations under the kept id.
+        // Merged objects bring their observations and their analysts'
+        // decisions under the kept id.
         let mut moved: Vec<(Vec<u8>, Vec<u8>, sled::IVec)> = Vec::new();
+        let mut moved_decisions: Vec<(Vec<u8>, Vec<u8>, sled::IVec)> = Vec::new();
         for (absorbed, kept) in &merges {
             state_of(absorbed, &mut states)?;
             state_of(kept, &mut states)?;
-            for item in self.obs.scan_prefix(obs_prefix(&absorbed.0)) {
-                let (k, v) = item?;
-                let tail = &k[absorbed.0.len()..];
-                let mut new_key = kept.0.as_bytes().to_vec();
-                new_key.extend_from_slice(tail);
-                moved.push((k.to_vec(), new_key, v));
+            for (tree, out) in [
+                (&self.obs, &mut moved),
+                (&self.overrides, &mut moved_decisions),
+            ] {
+                for item in tree.scan_prefix(obs_prefix(&absorbed.0)) {
+                    let (k, v) = item?;
+                    let tail = &k[absorbed.0.len()..];
+                    let mut new_key = kept.0.as_bytes().to_vec();
+                    new_key.extend_from_slice(tail);
+                    out.push((k.to_vec(), new_key, v));
+                }
             }
             let (a, k) = (absorbed.0.clone(), kept.0.clone());
             let absorbed_state = states.get(&a).cloned();
@@ -501,6 +509,10 @@ impl Index {
                 for (old, new, v) in &moved {
                     obs.insert(new.as_slice(), v.clone())?;
                     obs.remove(old.as_slice())?;
+                }
+                for (old, new, v) in &moved_decisions {
+                    overrides.insert(new.as_slice(), v.clone())?;
+                    overrides.remove(old.as_slice())?;
                 }
                 for (key, ck, id, value) in &rows {
                     obs.insert(key.as_slice(), value.as_slice())?;
@@ -702,26 +714,14 @@ impl Index {
         }
     }
 
-    /// An object's overrides in the order they were made (with those of
-    /// objects merged into it).
+    /// An object's overrides in the order they were made (those of
+    /// objects merged into it were moved under its id by the merge; the
+    /// key's journal sequence number keeps them in order).
     pub fn overrides(&self, id: &str) -> Result<Vec<OverrideRecord>, StoreError> {
-        let mut ids = vec![id.to_string()];
-        for item in self.objects.iter() {
-            let (k, v) = item?;
-            let s: ObjectState = decode("objects", &v)?;
-            if s.merged_into.as_deref() == Some(id) {
-                ids.push(String::from_utf8_lossy(&k).into_owned());
-            }
-        }
-        let mut out = Vec::new();
-        for i in ids {
-            for item in self.overrides.scan_prefix(obs_prefix(&i)) {
-                let (_, v) = item?;
-                out.push(decode::<OverrideRecord>("overrides", &v)?);
-            }
-        }
-        out.sort_by_key(|r| r.journal_seq);
-        Ok(out)
+        self.overrides
+            .scan_prefix(obs_prefix(id))
+            .map(|item| decode::<OverrideRecord>("overrides", &item?.1))
+            .collect()
     }
 
     /// The residuals of one solution (an empty list for a failed fit).

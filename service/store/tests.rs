@@ -201,3 +201,66 @@ fn pages_stay_put_while_solutions_arrive() {
     }
     assert_eq!(seen, (1..=25).rev().collect::<Vec<u64>>());
 }
+
+/// Two objects joined by an analyst's link: the absorbed one's decisions
+/// go with its observations to the kept one, in the order they were made.
+#[test]
+fn a_merge_brings_the_decisions_along() {
+    let dir = tempfile::tempdir().unwrap();
+    let store = SledStore::open(dir.path()).unwrap();
+    let entries = fixture_entries();
+    let renamed = |e: &ObservationEntry, designation: &str| {
+        let mut e = e.clone();
+        e.designations = vec![designation.to_string()];
+        e
+    };
+    store
+        .add_observations(
+            origin("a.psv"),
+            vec![renamed(&entries[0], "provID:2026 ZA1")],
+        )
+        .unwrap();
+    store
+        .add_observations(
+            origin("b.psv"),
+            vec![renamed(&entries[1], "provID:2026 ZA2")],
+        )
+        .unwrap();
+    let (older, younger) = (
+        store.object("2026 ZA1").unwrap().unwrap().id,
+        store.object("2026 ZA2").unwrap().unwrap().id,
+    );
+    let decision = |id: &str, action| OverrideRecord {
+        object_id: id.to_string(),
+        action,
+        by: "test".into(),
+        reason: "test".into(),
+        at_utc: "2026-12-03T12:00:00Z".into(),
+        journal_seq: 0,
+    };
+    store
+        .add_override(decision(
+            &younger,
+            OverrideAction::ExcludeObservation {
+                content_key: entries[1].content_key.clone(),
+            },
+        ))
+        .unwrap();
+    store
+        .add_override(decision(
+            &older,
+            OverrideAction::Link {
+                designations: vec!["provID:2026 ZA1".into(), "provID:2026 ZA2".into()],
+            },
+        ))
+        .unwrap();
+    assert_eq!(store.object("2026 ZA2").unwrap().unwrap().id, older);
+    let kept = store.overrides(&older).unwrap();
+    assert_eq!(kept.len(), 2);
+    assert!(kept[0].journal_seq < kept[1].journal_seq);
+    assert!(matches!(
+        kept[0].action,
+        OverrideAction::ExcludeObservation { .. }
+    ));
+    assert!(store.overrides(&younger).unwrap().is_empty());
+}
