@@ -256,8 +256,9 @@ fn init_logging(cfg: &Config) {
     }
 }
 
-fn runtime() -> Result<tokio::runtime::Runtime> {
+fn runtime(cfg: &Config) -> Result<tokio::runtime::Runtime> {
     Ok(tokio::runtime::Builder::new_multi_thread()
+        .max_blocking_threads(perihelix::daemon::blocking_threads(cfg))
         .enable_all()
         .build()?)
 }
@@ -265,7 +266,7 @@ fn runtime() -> Result<tokio::runtime::Runtime> {
 fn serve(config: &Path) -> Result<ExitCode> {
     let cfg = Config::load(config)?;
     init_logging(&cfg);
-    runtime()?.block_on(perihelix::daemon::serve(cfg))?;
+    runtime(&cfg)?.block_on(perihelix::daemon::serve(cfg))?;
     Ok(ExitCode::SUCCESS)
 }
 
@@ -282,7 +283,7 @@ fn rebuild(config: &Path) -> Result<ExitCode> {
 
 fn history(object: &str, config: &Path, json: bool) -> Result<ExitCode> {
     let cfg = Config::load(config)?;
-    let h = runtime()?.block_on(perihelix::daemon::history::history(&cfg, object))?;
+    let h = runtime(&cfg)?.block_on(perihelix::daemon::history::history(&cfg, object))?;
     if json {
         println!(
             "{}",

@@ -18,4 +18,4 @@ pub mod overrides;
 pub mod predict;
 pub mod routes;
 
-pub use routes::{router, ApiState};
+pub use routes::{router, ApiState, READS_IN_FLIGHT};

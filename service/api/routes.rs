@@ -51,7 +51,7 @@ pub struct ApiShared {
 
 /// Store reads in flight at once: a few per core keeps the disk and the
 /// cores busy without letting a crowd of clients multiply memory.
-const READS_IN_FLIGHT: usize = 8;
+pub const READS_IN_FLIGHT: usize = 8;
 
 #[derive(Clone)]
 pub struct ApiState(pub Arc<ApiShared>);

@@ -83,6 +83,16 @@ async fn stop_signal() {
     }
 }
 
+/// Threads for blocking work the runtime may start: the fits, the store
+/// reads the API lets through at once, and a few for ingest, store
+/// flushes, predictions and decisions. Unbounded, a crowd of clients grows
+/// the pool to hundreds of idle threads (a new one is started whenever a
+/// task arrives just before the last one is handed back), and each keeps
+/// its own allocator arena.
+pub fn blocking_threads(config: &Config) -> usize {
+    config.refit.workers + crate::api::READS_IN_FLIGHT + 8
+}
+
 /// Runs the daemon until a stop signal; returns once everything stopped.
 pub async fn serve(config: Config) -> Result<(), DaemonError> {
     let config = Arc::new(config);

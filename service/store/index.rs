@@ -4,10 +4,13 @@
 //! - `obs`: object id / normalised UTC time / content key -> observation
 //! - `content`: content key -> object id (re-ingest is idempotent)
 //! - `objects`: object id -> [`ObjectState`]
-//! - `solutions`: object id / sequence (u64 BE) -> [`SolutionRecord`]
-//!   without its residuals, which are large
-//! - `residuals`: the same key -> the residual list of that solution
-//! - `summaries`: the same key -> the solution's [`SolutionSummary`] alone
+//! - `solutions`: object id / sequence (u64 BE) -> the [`Span`] of the
+//!   journal entry that holds the [`SolutionRecord`]. A record with its
+//!   document and residuals is about 150 kB: sled keeps what it has read
+//!   resident whatever its cache setting, so the documents stay in the
+//!   journal and are read from there (the kernel's page cache keeps the
+//!   recent ones)
+//! - `summaries`: the same key -> the solution's [`SolutionSummary`]
 //! - `overrides`: object id / journal seq (u64 BE) -> an analyst's decision
 //! - `names`: designation text -> object id (lookup by any designation)
 //! - `links`: journal seq (u64 BE) / index (u32 BE) -> designation group,
@@ -31,15 +34,18 @@ use sled::Tree;
 use crate::ingest::{DesignationKey, Linker, ObjectId};
 
 use super::error::StoreError;
+use super::journal::Span;
 use super::records::{
     IndexedObservation, JournalEntry, JournalLine, ObjectState, ObservationEntry, OverrideAction,
     OverrideRecord, SolutionRecord, SolutionSummary,
 };
 
-/// The schema this program writes. Version 1: the trees above but
-/// `summaries`; version 2 adds `summaries`, so that a history page reads
-/// a few hundred bytes per solution instead of its whole document.
-pub const SCHEMA_VERSION: u32 = 2;
+/// The schema this program writes. Version 1: solution records (without
+/// residuals) in `solutions`, residuals in a tree of their own, no
+/// `summaries`; version 2 added `summaries`; version 3 keeps journal spans
+/// in `solutions` and drops the residuals tree. An older index is emptied
+/// and rebuilt from the journal at open, which is what the journal is for.
+pub const SCHEMA_VERSION: u32 = 3;
 
 /// sled's cache; its default (1 GiB) would let the daemon grow far beyond
 /// what an observatory machine should give it.
@@ -59,7 +65,6 @@ pub struct Index {
     objects: Tree,
     solutions: Tree,
     summaries: Tree,
-    residuals: Tree,
     overrides: Tree,
     names: Tree,
     links: Tree,
@@ -150,7 +155,6 @@ impl Index {
             objects: tree("objects")?,
             solutions: tree("solutions")?,
             summaries: tree("summaries")?,
-            residuals: tree("residuals")?,
             overrides: tree("overrides")?,
             names: tree("names")?,
             links: tree("links")?,
@@ -206,9 +210,8 @@ impl Index {
                         known: SCHEMA_VERSION,
                     });
                 }
-                // Migrations from older versions, one step each.
-                if found < 2 {
-                    self.migrate_to_summaries()?;
+                if found < SCHEMA_VERSION {
+                    self.empty_for_replay(found)?;
                 }
                 self.meta
                     .insert(META_SCHEMA, &SCHEMA_VERSION.to_be_bytes())?;
@@ -217,18 +220,28 @@ impl Index {
         }
     }
 
-    /// Version 1 to 2: every stored solution's summary into `summaries`.
-    fn migrate_to_summaries(&self) -> Result<(), StoreError> {
-        let mut n = 0;
-        for item in self.solutions.iter() {
-            let (k, v) = item?;
-            let record: SolutionRecord = decode("solutions", &v)?;
-            self.summaries.insert(k, encode(&record.summary)?)?;
-            n += 1;
+    /// Migration from any older schema: every tree emptied and the applied
+    /// position forgotten, so that the open that follows replays the whole
+    /// journal into the new layout.
+    fn empty_for_replay(&self, found: u32) -> Result<(), StoreError> {
+        for tree in [
+            &self.obs,
+            &self.content,
+            &self.objects,
+            &self.solutions,
+            &self.summaries,
+            &self.overrides,
+            &self.names,
+            &self.links,
+        ] {
+            tree.clear()?;
         }
+        self.db.drop_tree("residuals")?;
+        self.meta.remove(META_APPLIED)?;
         tracing::info!(
-            solutions = n,
-            "index migrated to schema 2 (solution summaries)"
+            from = found,
+            to = SCHEMA_VERSION,
+            "index schema is older: it is rebuilt from the journal"
         );
         Ok(())
     }
@@ -289,17 +302,13 @@ impl Index {
 
     /// Applies one journal entry (idempotently: an entry at or before the
     /// applied position changes nothing).
-    pub fn apply(
-        &self,
-        line: &JournalLine,
-        end_offset: u64,
-    ) -> Result<ObservationsApplied, StoreError> {
+    pub fn apply(&self, line: &JournalLine, span: Span) -> Result<ObservationsApplied, StoreError> {
         if let Some((_, seq)) = self.applied()? {
             if line.seq <= seq {
                 return Ok(ObservationsApplied::default());
             }
         }
-        let applied = Self::applied_value(end_offset, line.seq);
+        let applied = Self::applied_value(span.end(), line.seq);
         match &line.entry {
             JournalEntry::Observations { observations, .. } => {
                 self.apply_observations(line.seq, observations, None, &applied)
@@ -308,7 +317,7 @@ impl Index {
                 self.apply_observations(line.seq, &[], Some(record), &applied)
             }
             JournalEntry::Solution { record } => {
-                self.apply_solution(record, &applied)?;
+                self.apply_solution(record, span, &applied)?;
                 Ok(ObservationsApplied::default())
             }
         }
@@ -539,19 +548,14 @@ impl Index {
         Ok(outcome)
     }
 
-    fn apply_solution(&self, record: &SolutionRecord, applied: &[u8]) -> Result<(), StoreError> {
+    fn apply_solution(
+        &self,
+        record: &SolutionRecord,
+        span: Span,
+        applied: &[u8],
+    ) -> Result<(), StoreError> {
         let key = solution_key(&record.object_id, record.seq);
-        // The residuals (one entry per observation) go to their own tree:
-        // a solution record stays small enough for sled to keep inline.
-        let mut slim = record.clone();
-        let residuals = slim
-            .document
-            .as_mut()
-            .and_then(|d| d.as_object_mut())
-            .and_then(|o| o.remove("residuals"))
-            .unwrap_or(serde_json::Value::Array(Vec::new()));
-        let residuals = encode(&residuals)?;
-        let value = encode(&slim)?;
+        let value = span.to_bytes();
         let summary = encode(&record.summary)?;
         let mut state: ObjectState = match self.objects.get(record.object_id.as_bytes())? {
             Some(v) => decode("objects", &v)?,
@@ -566,20 +570,13 @@ impl Index {
             }
         }
         let state = encode(&state)?;
-        let trees = (
-            &self.solutions,
-            &self.summaries,
-            &self.residuals,
-            &self.objects,
-            &self.meta,
-        );
-        let result = trees.transaction(|(solutions, summaries, residuals_t, objects, meta)| {
+        let trees = (&self.solutions, &self.summaries, &self.objects, &self.meta);
+        let result = trees.transaction(|(solutions, summaries, objects, meta)| {
             // History is never overwritten: an entry already there
             // (a replay) is left as it is.
             if solutions.get(key.as_slice())?.is_none() {
                 solutions.insert(key.as_slice(), value.as_slice())?;
                 summaries.insert(key.as_slice(), summary.as_slice())?;
-                residuals_t.insert(key.as_slice(), residuals.as_slice())?;
                 objects.insert(record.object_id.as_bytes(), state.as_slice())?;
             }
             meta.insert(META_APPLIED, applied)?;
@@ -659,25 +656,30 @@ impl Index {
         Ok((out, None))
     }
 
-    /// Solutions of an object, newest first, with sequence numbers below
-    /// `before` (all when None), at most `limit`.
-    pub fn solutions(
+    /// Where an object's solutions are in the journal, newest first, with
+    /// sequence numbers below `before` (all when None), at most `limit`.
+    pub fn solution_spans(
         &self,
         id: &str,
         before: Option<u64>,
         limit: usize,
-    ) -> Result<Vec<SolutionRecord>, StoreError> {
+    ) -> Result<Vec<Span>, StoreError> {
         let start = solution_key(id, 0);
         let end = solution_key(id, before.unwrap_or(u64::MAX));
-        let mut out = Vec::new();
-        for item in self.solutions.range(start..end).rev() {
-            let (_, v) = item?;
-            out.push(decode("solutions", &v)?);
-            if out.len() == limit {
-                break;
-            }
+        self.solutions
+            .range(start..end)
+            .rev()
+            .take(limit)
+            .map(|item| span_value(&item?.1))
+            .collect()
+    }
+
+    /// Where one solution is in the journal.
+    pub fn solution_span(&self, id: &str, seq: u64) -> Result<Option<Span>, StoreError> {
+        match self.solutions.get(solution_key(id, seq))? {
+            Some(v) => Ok(Some(span_value(&v)?)),
+            None => Ok(None),
         }
-        Ok(out)
     }
 
     /// Summaries of an object's solutions, newest first, with sequence
@@ -699,21 +701,6 @@ impl Index {
         Ok(out)
     }
 
-    /// One solution record as stored (JSON), to be served as it is.
-    pub fn solution_bytes(&self, id: &str, seq: u64) -> Result<Option<Vec<u8>>, StoreError> {
-        Ok(self
-            .solutions
-            .get(solution_key(id, seq))?
-            .map(|v| v.to_vec()))
-    }
-
-    pub fn solution(&self, id: &str, seq: u64) -> Result<Option<SolutionRecord>, StoreError> {
-        match self.solutions.get(solution_key(id, seq))? {
-            Some(v) => Ok(Some(decode("solutions", &v)?)),
-            None => Ok(None),
-        }
-    }
-
     /// An object's overrides in the order they were made (those of
     /// objects merged into it were moved under its id by the merge; the
     /// key's journal sequence number keeps them in order).
@@ -724,14 +711,6 @@ impl Index {
             .collect()
     }
 
-    /// The residuals of one solution (an empty list for a failed fit).
-    pub fn residuals(&self, id: &str, seq: u64) -> Result<Option<serde_json::Value>, StoreError> {
-        match self.residuals.get(solution_key(id, seq))? {
-            Some(v) => Ok(Some(decode("residuals", &v)?)),
-            None => Ok(None),
-        }
-    }
-
     pub fn has_content(&self, content: &[u8; 32]) -> Result<bool, StoreError> {
         Ok(self.content.contains_key(content)?)
     }
@@ -740,6 +719,13 @@ impl Index {
     pub fn counts(&self) -> (usize, usize, usize) {
         (self.objects.len(), self.obs.len(), self.solutions.len())
     }
+}
+
+fn span_value(v: &[u8]) -> Result<Span, StoreError> {
+    Span::from_bytes(v).ok_or_else(|| StoreError::Corrupt {
+        what: "index solutions".into(),
+        why: "a journal span is unreadable".into(),
+    })
 }
 
 fn tx_result(r: Result<(), TransactionError<()>>) -> Result<(), StoreError> {

@@ -26,10 +26,96 @@ pub struct Journal {
     last_seq: u64,
 }
 
-/// One entry read back, with where the next one starts.
+/// One entry read back, with where it sits in the file.
 pub struct ReadEntry {
     pub line: JournalLine,
-    pub end_offset: u64,
+    pub span: Span,
+}
+
+impl ReadEntry {
+    /// Where the next entry starts.
+    pub fn end_offset(&self) -> u64 {
+        self.span.end()
+    }
+}
+
+/// Where an entry sits in the journal file: its first byte and its length
+/// with the newline. Lines never move (the journal is only appended to),
+/// so a span stays valid for as long as the file exists.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Span {
+    pub start: u64,
+    pub len: u64,
+}
+
+impl Span {
+    pub fn end(&self) -> u64 {
+        self.start + self.len
+    }
+
+    /// Sixteen bytes, big-endian start then length, as the index keeps it.
+    pub fn to_bytes(self) -> [u8; 16] {
+        let mut b = [0u8; 16];
+        b[..8].copy_from_slice(&self.start.to_be_bytes());
+        b[8..].copy_from_slice(&self.len.to_be_bytes());
+        b
+    }
+
+    pub fn from_bytes(b: &[u8]) -> Option<Self> {
+        let start = u64::from_be_bytes(b.get(..8)?.try_into().ok()?);
+        let len = u64::from_be_bytes(b.get(8..16)?.try_into().ok()?);
+        (b.len() == 16).then_some(Self { start, len })
+    }
+}
+
+/// Reads single entries at known spans, beside the appender: positioned
+/// reads share the file without a lock or a seek position. The large
+/// solution documents are read this way rather than kept in the index,
+/// so that they sit in the kernel's page cache (which gives memory back
+/// under pressure) and not in the daemon's resident memory.
+pub struct JournalReader {
+    path: PathBuf,
+    file: File,
+}
+
+impl JournalReader {
+    pub fn open(dir: &Path) -> Result<Self, StoreError> {
+        let path = dir.join(JOURNAL_FILE);
+        let file = File::open(&path).map_err(|e| StoreError::io(&path, e))?;
+        Ok(Self { path, file })
+    }
+
+    /// The entry at `span`, which the index recorded when it applied it.
+    pub fn read(&self, span: Span) -> Result<JournalLine, StoreError> {
+        let bytes = self.read_bytes(span)?;
+        serde_json::from_slice(&bytes).map_err(|e| self.corrupt(span, &e.to_string()))
+    }
+
+    /// The JSON line at `span`, unparsed (for a reader that wants a part).
+    pub fn read_bytes(&self, span: Span) -> Result<Vec<u8>, StoreError> {
+        use std::os::unix::fs::FileExt;
+        let len = usize::try_from(span.len).map_err(|_| self.corrupt(span, "too long"))?;
+        let mut buf = vec![0u8; len];
+        self.file
+            .read_exact_at(&mut buf, span.start)
+            .map_err(|e| StoreError::io(&self.path, e))?;
+        if buf.last() != Some(&b'\n') {
+            return Err(self.corrupt(span, "the span does not end a line"));
+        }
+        Ok(buf)
+    }
+
+    pub fn corrupt(&self, span: Span, why: &str) -> StoreError {
+        StoreError::Corrupt {
+            what: format!(
+                "{} bytes {}..{}",
+                self.path.display(),
+                span.start,
+                span.end()
+            ),
+            why: why.to_string(),
+        }
+    }
 }
 
 /// fsync of a directory, so that a file created or renamed in it stays.
@@ -109,19 +195,19 @@ impl Journal {
                             });
                         }
                         if let Some((offset, seq)) = known {
-                            if e.line.seq == seq && e.end_offset != offset {
+                            if e.line.seq == seq && e.end_offset() != offset {
                                 return Err(StoreError::Corrupt {
                                     what: self.path.display().to_string(),
                                     why: format!(
                                         "the index has applied entry {seq} as ending at byte \
                                          {offset}, but here it ends at byte {}",
-                                        e.end_offset
+                                        e.end_offset()
                                     ),
                                 });
                             }
                         }
                         last_seq = e.line.seq;
-                        good_end = e.end_offset;
+                        good_end = e.end_offset();
                     }
                     Err(ReadProblem::Torn) => {
                         torn = true;
@@ -164,20 +250,25 @@ impl Journal {
         Ok(())
     }
 
-    /// Appends entries, numbering them, and fsyncs before returning their
-    /// sequence numbers.
-    pub fn append(&mut self, entries: Vec<JournalEntry>) -> Result<Vec<JournalLine>, StoreError> {
+    /// Appends entries, numbering them, and fsyncs before returning them
+    /// with their sequence numbers and places in the file.
+    pub fn append(&mut self, entries: Vec<JournalEntry>) -> Result<Vec<ReadEntry>, StoreError> {
         let mut text = Vec::new();
-        let mut lines = Vec::with_capacity(entries.len());
+        let mut written = Vec::with_capacity(entries.len());
         for (i, entry) in entries.into_iter().enumerate() {
             let line = JournalLine {
                 seq: self.last_seq + 1 + i as u64,
                 entry,
             };
+            let start = text.len();
             serde_json::to_writer(&mut text, &line)
                 .map_err(|e| StoreError::Encode { why: e.to_string() })?;
             text.push(b'\n');
-            lines.push(line);
+            let span = Span {
+                start: self.length + start as u64,
+                len: (text.len() - start) as u64,
+            };
+            written.push(ReadEntry { line, span });
         }
         let result = self
             .file
@@ -191,8 +282,8 @@ impl Journal {
             return Err(StoreError::io(&self.path, e));
         }
         self.length += text.len() as u64;
-        self.last_seq += lines.len() as u64;
-        Ok(lines)
+        self.last_seq += written.len() as u64;
+        Ok(written)
     }
 
     /// The entries from byte `start` on, in order.
@@ -260,12 +351,13 @@ impl Iterator for Entries {
             self.done = true;
             return Some(Err(ReadProblem::Torn));
         }
+        let span = Span {
+            start: self.offset,
+            len: n as u64,
+        };
         self.offset += n as u64;
         match serde_json::from_slice::<JournalLine>(&self.buf) {
-            Ok(line) => Some(Ok(ReadEntry {
-                line,
-                end_offset: self.offset,
-            })),
+            Ok(line) => Some(Ok(ReadEntry { line, span })),
             Err(e) => {
                 self.done = true;
                 // Only the very last line can be torn; is there more?
@@ -319,18 +411,39 @@ mod tests {
     fn entries_are_numbered_and_read_back() {
         let dir = tempfile::tempdir().unwrap();
         let mut j = Journal::open(dir.path(), None).unwrap();
-        let lines = j.append(vec![entry("a.psv"), entry("b.psv")]).unwrap();
-        assert_eq!(lines.iter().map(|l| l.seq).collect::<Vec<_>>(), [1, 2]);
-        j.append(vec![entry("c.psv")]).unwrap();
+        let mut written = j.append(vec![entry("a.psv"), entry("b.psv")]).unwrap();
+        assert_eq!(
+            written.iter().map(|l| l.line.seq).collect::<Vec<_>>(),
+            [1, 2]
+        );
+        written.extend(j.append(vec![entry("c.psv")]).unwrap());
         drop(j);
         let j = Journal::open(dir.path(), None).unwrap();
         assert_eq!(j.last_seq(), 3);
-        let read: Vec<u64> = j
+        let read: Vec<(u64, Span)> = j
             .read_from(0)
             .unwrap()
-            .map(|e| e.unwrap().line.seq)
+            .map(|e| e.map(|e| (e.line.seq, e.span)).unwrap())
             .collect();
-        assert_eq!(read, [1, 2, 3]);
+        assert_eq!(read.iter().map(|r| r.0).collect::<Vec<_>>(), [1, 2, 3]);
+        // The places the appender gave are the places a reader finds, and
+        // a positioned read at each gives its entry back.
+        let reader = JournalReader::open(dir.path()).unwrap();
+        for (w, (seq, span)) in written.iter().zip(&read) {
+            assert_eq!(w.span, *span);
+            assert_eq!(reader.read(*span).unwrap(), w.line);
+            assert_eq!(w.line.seq, *seq);
+            assert_eq!(Span::from_bytes(&span.to_bytes()), Some(*span));
+        }
+        // A span that does not hold one whole entry is refused.
+        let wrong = Span {
+            start: read[1].1.start + 1,
+            len: read[1].1.len - 1,
+        };
+        assert!(matches!(
+            reader.read(wrong),
+            Err(StoreError::Corrupt { .. })
+        ));
     }
 
     #[test]
@@ -349,7 +462,7 @@ mod tests {
         assert_eq!(j.length(), good);
         assert_eq!(j.last_seq(), 1);
         let lines = j.append(vec![entry("b.psv")]).unwrap();
-        assert_eq!(lines[0].seq, 2);
+        assert_eq!(lines[0].line.seq, 2);
     }
 
     #[test]

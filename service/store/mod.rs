@@ -21,6 +21,7 @@ pub mod index;
 pub mod journal;
 pub mod records;
 
+use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use std::sync::Mutex;
 
@@ -33,7 +34,7 @@ pub use records::{
 };
 
 use index::Index;
-use journal::Journal;
+use journal::{Journal, JournalReader, Span};
 
 /// What the daemon's stages need of a store.
 pub trait Store: Send + Sync {
@@ -62,6 +63,7 @@ pub trait Store: Send + Sync {
         before: Option<u64>,
         limit: usize,
     ) -> Result<Vec<SolutionRecord>, StoreError>;
+    /// One solution record whole, its document's residuals included.
     fn solution(&self, id: &str, seq: u64) -> Result<Option<SolutionRecord>, StoreError>;
     /// Summaries only, newest first, below `before`, at most `limit`.
     fn summaries(
@@ -70,13 +72,14 @@ pub trait Store: Send + Sync {
         before: Option<u64>,
         limit: usize,
     ) -> Result<Vec<SolutionSummary>, StoreError>;
-    /// One solution record as its stored JSON.
+    /// One solution record as JSON, without its document's residuals
+    /// (which [`Store::residuals`] gives).
     fn solution_bytes(&self, id: &str, seq: u64) -> Result<Option<Vec<u8>>, StoreError>;
     /// Journals an analyst's decision (fsync), then indexes it.
     fn add_override(&self, record: OverrideRecord) -> Result<ObservationsApplied, StoreError>;
     /// An object's decisions in the order they were made.
     fn overrides(&self, id: &str) -> Result<Vec<OverrideRecord>, StoreError>;
-    /// The residuals of a solution, kept apart from its record.
+    /// The residuals of a solution (an empty list for a failed fit).
     fn residuals(&self, id: &str, seq: u64) -> Result<Option<serde_json::Value>, StoreError>;
     /// The last journal sequence number.
     fn journal_seq(&self) -> u64;
@@ -107,6 +110,8 @@ pub fn all_observations(
 /// The journal and the sled index in one directory.
 pub struct SledStore {
     journal: Mutex<Journal>,
+    /// Positioned reads of solution records, beside the appender.
+    reader: JournalReader,
     index: Index,
 }
 
@@ -127,6 +132,7 @@ impl SledStore {
         let journal = Journal::open(&journal_dir(database), applied)?;
         let store = Self {
             journal: Mutex::new(journal),
+            reader: JournalReader::open(&journal_dir(database))?,
             index,
         };
         let replayed = store.replay(applied.map_or(0, |a| a.0))?;
@@ -178,6 +184,7 @@ impl SledStore {
         let index = Index::open(&dir)?;
         let store = Self {
             journal: Mutex::new(journal),
+            reader: JournalReader::open(&journal_dir(database))?,
             index,
         };
         let n = store.replay(0)?;
@@ -193,7 +200,7 @@ impl SledStore {
                 what: journal.path().display().to_string(),
                 why: format!("{p:?} while replaying"),
             })?;
-            self.index.apply(&e.line, e.end_offset)?;
+            self.index.apply(&e.line, e.span)?;
             n += 1;
         }
         Ok(n)
@@ -209,13 +216,23 @@ impl SledStore {
     /// entries in journal order.
     fn append_and_apply(&self, entry: JournalEntry) -> Result<ObservationsApplied, StoreError> {
         let mut journal = self.lock()?;
-        let lines = journal.append(vec![entry])?;
-        let end = journal.length();
+        let written = journal.append(vec![entry])?;
         let mut outcome = ObservationsApplied::default();
-        for line in &lines {
-            outcome = self.index.apply(line, end)?;
+        for e in &written {
+            outcome = self.index.apply(&e.line, e.span)?;
         }
         Ok(outcome)
+    }
+
+    /// The solution record journaled at `span`.
+    fn read_solution(&self, span: Span) -> Result<SolutionRecord, StoreError> {
+        match self.reader.read(span)?.entry {
+            JournalEntry::Solution { record } => Ok(*record),
+            _ => Err(StoreError::Corrupt {
+                what: format!("journal bytes {}..{}", span.start, span.end()),
+                why: "the index points at an entry that is not a solution".into(),
+            }),
+        }
     }
 
     pub fn counts(&self) -> (usize, usize, usize) {
@@ -279,11 +296,18 @@ impl Store for SledStore {
         before: Option<u64>,
         limit: usize,
     ) -> Result<Vec<SolutionRecord>, StoreError> {
-        self.index.solutions(id, before, limit)
+        self.index
+            .solution_spans(id, before, limit)?
+            .into_iter()
+            .map(|span| self.read_solution(span))
+            .collect()
     }
 
     fn solution(&self, id: &str, seq: u64) -> Result<Option<SolutionRecord>, StoreError> {
-        self.index.solution(id, seq)
+        self.index
+            .solution_span(id, seq)?
+            .map(|span| self.read_solution(span))
+            .transpose()
     }
 
     fn summaries(
@@ -296,11 +320,24 @@ impl Store for SledStore {
     }
 
     fn solution_bytes(&self, id: &str, seq: u64) -> Result<Option<Vec<u8>>, StoreError> {
-        self.index.solution_bytes(id, seq)
+        let Some(span) = self.index.solution_span(id, seq)? else {
+            return Ok(None);
+        };
+        let line = self.reader.read_bytes(span)?;
+        without_residuals(&line)
+            .map(Some)
+            .map_err(|e| self.reader.corrupt(span, &e.to_string()))
     }
 
     fn residuals(&self, id: &str, seq: u64) -> Result<Option<serde_json::Value>, StoreError> {
-        self.index.residuals(id, seq)
+        Ok(self.solution(id, seq)?.map(|mut record| {
+            record
+                .document
+                .as_mut()
+                .and_then(|d| d.as_object_mut())
+                .and_then(|o| o.remove("residuals"))
+                .unwrap_or(serde_json::Value::Array(Vec::new()))
+        }))
     }
 
     fn add_override(&self, record: OverrideRecord) -> Result<ObservationsApplied, StoreError> {
@@ -318,6 +355,32 @@ impl Store for SledStore {
     fn flush(&self) -> Result<(), StoreError> {
         self.index.flush()
     }
+}
+
+/// A solution's journal line as the record's JSON without its document's
+/// residuals. Only the record's and the document's top levels are taken
+/// apart; every value below is copied as the journal holds it, which is
+/// several times cheaper than decoding the record and encoding it again.
+fn without_residuals(line: &[u8]) -> Result<Vec<u8>, serde_json::Error> {
+    use serde_json::value::RawValue;
+    use std::borrow::Cow;
+    type Fields<'a> = BTreeMap<Cow<'a, str>, &'a RawValue>;
+    #[derive(serde::Deserialize)]
+    struct Line<'a> {
+        #[serde(borrow)]
+        record: Fields<'a>,
+    }
+    let mut record = serde_json::from_slice::<Line>(line)?.record;
+    let document;
+    if let Some(raw) = record.get("document").copied() {
+        if raw.get() != "null" {
+            let mut fields: Fields = serde_json::from_str(raw.get())?;
+            fields.remove("residuals");
+            document = serde_json::value::to_raw_value(&fields)?;
+            record.insert(Cow::Borrowed("document"), &document);
+        }
+    }
+    serde_json::to_vec(&record)
 }
 
 #[cfg(test)]

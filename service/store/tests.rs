@@ -264,3 +264,70 @@ fn a_merge_brings_the_decisions_along() {
     ));
     assert!(store.overrides(&younger).unwrap().is_empty());
 }
+
+/// A record's document lives in the journal: the record is read back
+/// whole, served without its residuals, and the residuals apart.
+#[test]
+fn documents_are_read_from_the_journal_and_residuals_apart() {
+    let dir = tempfile::tempdir().unwrap();
+    let store = SledStore::open(dir.path()).unwrap();
+    store
+        .add_observations(origin("a.psv"), fixture_entries())
+        .unwrap();
+    let id = store.objects().unwrap()[0].id.clone();
+    let mut r = record(&id, 1, store.journal_seq());
+    r.document = Some(serde_json::json!({
+        "recommended": "gravity",
+        "residuals": [{"ra_cos_dec_arcsec": 0.25, "dec_arcsec": -0.5}],
+    }));
+    store.add_solution(r.clone()).unwrap();
+    assert_eq!(store.solution(&id, 1).unwrap(), Some(r));
+    let served: serde_json::Value =
+        serde_json::from_slice(&store.solution_bytes(&id, 1).unwrap().unwrap()).unwrap();
+    assert_eq!(served["document"]["recommended"], "gravity");
+    assert!(served["document"].get("residuals").is_none());
+    let residuals = store.residuals(&id, 1).unwrap().unwrap();
+    assert_eq!(residuals[0]["dec_arcsec"], -0.5);
+    assert!(store.solution(&id, 2).unwrap().is_none());
+    assert!(store.residuals(&id, 2).unwrap().is_none());
+}
+
+/// An index written by an older schema is emptied and rebuilt from the
+/// journal at open, into the layout of this one.
+#[test]
+fn an_older_index_is_rebuilt_from_the_journal() {
+    let dir = tempfile::tempdir().unwrap();
+    let (id, counts) = {
+        let store = SledStore::open(dir.path()).unwrap();
+        store
+            .add_observations(origin("a.psv"), fixture_entries())
+            .unwrap();
+        let id = store.objects().unwrap()[0].id.clone();
+        store
+            .add_solution(record(&id, 1, store.journal_seq()))
+            .unwrap();
+        store.flush().unwrap();
+        (id, store.counts())
+    };
+    {
+        // What schema 2 left: its version and a residuals tree.
+        let db = sled::open(index_dir(dir.path())).unwrap();
+        let meta = db.open_tree("meta").unwrap();
+        meta.insert("schema", &2u32.to_be_bytes()).unwrap();
+        db.open_tree("residuals").unwrap().insert("x", "y").unwrap();
+        db.flush().unwrap();
+    }
+    let store = SledStore::open(dir.path()).unwrap();
+    assert_eq!(store.counts(), counts);
+    assert_eq!(store.solution(&id, 1).unwrap().unwrap().seq, 1);
+    drop(store);
+    let db = sled::open(index_dir(dir.path())).unwrap();
+    assert!(!db.tree_names().iter().any(|n| n.as_ref() == b"residuals"));
+    let schema = db
+        .open_tree("meta")
+        .unwrap()
+        .get("schema")
+        .unwrap()
+        .unwrap();
+    assert_eq!(schema.as_ref(), &SCHEMA_VERSION.to_be_bytes());
+}
