@@ -264,6 +264,37 @@ fn a_stop_during_a_fit_is_prompt_and_the_refit_resumes_after_restart() {
     let status = d.stop(Duration::from_secs(30));
     assert!(status.success());
     println!("stop took {stop_took:?}");
+
+    // A refit asked for over the API just before a stop: journaled, so
+    // whether its fit was cancelled by the stop or had finished, solution
+    // 2 exists after the restart and names who asked and why. (That the
+    // journaled request keeps the object due is checked in the store's
+    // own tests.)
+    let d = Running::start(&dir, START);
+    let body = serde_json::json!({"by": "test analyst", "reason": "check after the stop"});
+    let (status, answer) = d.post(
+        &format!("/v1/objects/{}/refit", common::daemon::encode(OBJECT)),
+        Some(TOKEN),
+        "application/json",
+        body.to_string().into_bytes(),
+    );
+    assert_eq!(status, 202, "{answer}");
+    assert_eq!(answer["override"]["action"], "refit", "{answer}");
+    let status = d.stop(Duration::from_secs(30));
+    assert!(status.success());
+    let d = Running::start(&dir, START);
+    let s = wait_for_solution(&d, 2);
+    let asked = s["overrides"]
+        .as_array()
+        .into_iter()
+        .flatten()
+        .find(|o| o["action"] == "refit")
+        .cloned()
+        .unwrap_or(Value::Null);
+    assert_eq!(asked["by"], "test analyst", "{s}");
+    assert_eq!(asked["reason"], "check after the stop");
+    let status = d.stop(Duration::from_secs(30));
+    assert!(status.success());
 }
 
 /// Sends only the head of a POST declaring `length` bytes; returns the
@@ -486,4 +517,132 @@ fn analysts_overrides_are_kept_and_change_the_next_fit() {
     let (_, list) = d.get(&path);
     assert_eq!(list["overrides"].as_array().map(Vec::len), Some(2));
     assert!(d.stop(Duration::from_secs(30)).success());
+}
+
+/// Pages through the observations, `limit` at a time, calling `between`
+/// after the first page; the rows seen, in order, by content key and time.
+fn observation_pages(
+    d: &Running,
+    limit: usize,
+    mut between: impl FnMut(),
+) -> Vec<(String, String)> {
+    let mut seen = Vec::new();
+    let mut cursor: Option<String> = None;
+    loop {
+        let mut path = format!(
+            "/v1/objects/{}/observations?limit={limit}",
+            common::daemon::encode(OBJECT)
+        );
+        if let Some(c) = &cursor {
+            path.push_str(&format!("&cursor={c}"));
+        }
+        let (status, page) = d.get(&path);
+        assert_eq!(status, 200, "{page}");
+        for o in page["observations"].as_array().into_iter().flatten() {
+            seen.push((
+                o["content_key"].as_str().unwrap_or_default().to_string(),
+                o["obs_time_utc"].as_str().unwrap_or_default().to_string(),
+            ));
+        }
+        if cursor.is_none() {
+            between();
+        }
+        match page["next_cursor"].as_str() {
+            Some(c) => cursor = Some(c.to_string()),
+            None => return seen,
+        }
+    }
+}
+
+/// A client paging through history while solutions and observations
+/// arrive between its pages sees every item of its first look exactly
+/// once, in order: pages are cut by sequence number (solutions) and by
+/// time and content key (observations), never by position.
+#[test]
+fn pages_hold_still_while_data_arrive_over_http() {
+    let dir = DaemonDir::new("quiet_period_s = 0.5\nmax_delay_s = 60\nrescan_interval_s = 2");
+    let d = Running::start(&dir, START);
+    let (header, nights) = psv_nights(&repo().join(FIXTURE));
+    // The first look holds nights 2 to 5, so that a night before it and
+    // one after it can arrive later.
+    let first: Vec<String> = nights[1..5].iter().flat_map(|(_, r)| r.clone()).collect();
+    dir.drop_file("nights-02-05.psv", &psv_file(&header, &first));
+    wait_for_solution(&d, 1);
+    let refit = |why: &str| {
+        let body = serde_json::json!({"by": "test analyst", "reason": why});
+        let path = format!("/v1/objects/{}/refit", common::daemon::encode(OBJECT));
+        let (status, answer) = d.post(
+            &path,
+            Some(TOKEN),
+            "application/json",
+            body.to_string().into_bytes(),
+        );
+        assert_eq!(status, 202, "{answer}");
+    };
+    refit("a second solution to page through");
+    wait_for_solution(&d, 2);
+
+    // Solutions, one a page: a new solution is stored between the pages.
+    let list = |cursor: Option<&str>| {
+        let mut path = format!(
+            "/v1/objects/{}/solutions?limit=1",
+            common::daemon::encode(OBJECT)
+        );
+        if let Some(c) = cursor {
+            path.push_str(&format!("&cursor={c}"));
+        }
+        let (status, page) = d.get(&path);
+        assert_eq!(status, 200, "{page}");
+        page
+    };
+    let page1 = list(None);
+    refit("a solution that arrives between two pages");
+    wait_for_solution(&d, 3);
+    let mut seqs: Vec<u64> = Vec::new();
+    let mut page = page1;
+    loop {
+        seqs.extend(
+            page["solutions"]
+                .as_array()
+                .into_iter()
+                .flatten()
+                .filter_map(|s| s["seq"].as_u64()),
+        );
+        match page["next_cursor"].as_str() {
+            Some(c) => page = list(Some(c)),
+            None => break,
+        }
+    }
+    assert_eq!(seqs, [2, 1], "the pages of the first look, once each");
+
+    // Observations, a few a page: a night before and a night after the
+    // first look's arc are posted between the pages.
+    let before: Vec<(String, String)> = observation_pages(&d, 1000, || {});
+    let count_before = before.len();
+    let earlier = psv_file(&header, &nights[0].1);
+    let later = psv_file(&header, &nights[nights.len() - 1].1);
+    let paged = observation_pages(&d, 7, || {
+        for text in [&later, &earlier] {
+            let (status, answer) = d.post(
+                "/v1/observations",
+                Some(TOKEN),
+                "text/psv",
+                text.clone().into_bytes(),
+            );
+            assert_eq!(status, 201, "{answer}");
+        }
+    });
+    let after = observation_pages(&d, 1000, || {});
+    assert!(after.len() > count_before, "the posted nights are stored");
+    let once: BTreeSet<&(String, String)> = paged.iter().collect();
+    assert_eq!(once.len(), paged.len(), "no observation twice");
+    for o in &before {
+        assert!(once.contains(o), "{o:?} of the first look was skipped");
+    }
+    assert!(
+        paged.windows(2).all(|w| w[0].1 <= w[1].1),
+        "in time order across pages"
+    );
+    let status = d.stop(Duration::from_secs(30));
+    assert!(status.success(), "exit status {status}");
 }

@@ -3,6 +3,7 @@
 //! journaled with who, when and why, triggers a refit, and is listed in
 //! every solution it affected.
 
+use axum::body::Bytes;
 use axum::extract::rejection::JsonRejection;
 use axum::extract::{Path, State};
 use axum::http::{HeaderMap, StatusCode};
@@ -131,12 +132,75 @@ pub async fn post_override(
                 designations.insert(0, own.clone());
             }
         }
+        OverrideAction::Refit => {}
     }
-    let record = OverrideRecord {
-        object_id: object.id.clone(),
+    journal_decision(
+        &s,
+        &object.id,
         action,
-        by: request.by.trim().to_string(),
-        reason: request.reason.trim().to_string(),
+        &request.by,
+        &request.reason,
+        Trigger::Override,
+    )
+    .await
+}
+
+/// `POST .../refit`, with an optional JSON body `{by, reason}`: journaled
+/// as a decision (so a stop before the fit does not lose it), then queued.
+pub async fn post_refit(
+    State(s): State<ApiState>,
+    headers: HeaderMap,
+    Path(id): Path<String>,
+    body: Bytes,
+) -> Result<Response, ApiError> {
+    require_token(s.0.token.as_deref(), &headers)?;
+    #[derive(Deserialize)]
+    struct Asked {
+        by: String,
+        reason: String,
+    }
+    let asked = if body.iter().all(u8::is_ascii_whitespace) {
+        Asked {
+            by: "api".into(),
+            reason: "a refit asked for over the API".into(),
+        }
+    } else {
+        serde_json::from_slice::<Asked>(&body).map_err(|e| {
+            ApiError::bad_request(
+                "bad_refit",
+                format!("{e}; the body is empty or JSON with by and reason"),
+            )
+        })?
+    };
+    check_text("by", &asked.by)?;
+    check_text("reason", &asked.reason)?;
+    let object = find_object(&s, id).await?;
+    journal_decision(
+        &s,
+        &object.id,
+        OverrideAction::Refit,
+        &asked.by,
+        &asked.reason,
+        Trigger::Manual,
+    )
+    .await
+}
+
+/// Journals a decision (fsync, then the index), then queues the refit it
+/// asks for.
+async fn journal_decision(
+    s: &ApiState,
+    object_id: &str,
+    action: OverrideAction,
+    by: &str,
+    reason: &str,
+    trigger: Trigger,
+) -> Result<Response, ApiError> {
+    let record = OverrideRecord {
+        object_id: object_id.to_string(),
+        action,
+        by: by.trim().to_string(),
+        reason: reason.trim().to_string(),
         at_utc: crate::watch::clock::now_utc().0,
         journal_seq: 0,
     };
@@ -148,10 +212,10 @@ pub async fn post_override(
     })
     .await
     .map_err(|e| ApiError::new(StatusCode::INTERNAL_SERVER_ERROR, "internal", e.to_string()))??;
-    s.0.intake.queue.mark(&object.id, Trigger::Override);
+    s.0.intake.queue.mark(object_id, trigger);
     Ok((
         StatusCode::ACCEPTED,
-        Json(serde_json::json!({ "override": record, "refit": "queued" })),
+        Json(serde_json::json!({ "override": record, "refit": "queued", "trigger": trigger })),
     )
         .into_response())
 }

@@ -16,7 +16,7 @@ use serde::{Deserialize, Serialize};
 use tower_http::timeout::TimeoutLayer;
 
 use crate::daemon::metrics::Metrics;
-use crate::store::{ObjectState, SolutionSummary, Store, Trigger};
+use crate::store::{ObjectState, SolutionSummary, Store};
 use crate::watch::take::Taken;
 use crate::watch::{take_one, Intake};
 
@@ -160,7 +160,7 @@ pub fn routes() -> Vec<Route> {
         r("get", "/v1/objects/{id}/solutions/{seq}/residuals", "Every observation's residual under that solution's recommended model.", false, &[], get(residuals)),
         r("get", "/v1/objects/{id}/predictions", "Places and uncertainty ellipses from a stored solution, without refitting.", false, PREDICTION_QUERY, get(super::predict::predictions)),
         r("get", "/v1/objects/{id}/observations", "The object's observations in time order.", false, PAGE_QUERY, get(observations)),
-        r("post", "/v1/objects/{id}/refit", "Ask for a refit now.", true, &[], post(refit)),
+        r("post", "/v1/objects/{id}/refit", "Ask for a refit now (optional JSON: by, reason); journaled, so it survives a stop.", true, &[], post(super::overrides::post_refit)),
         r("get", "/v1/objects/{id}/overrides", "The analysts' decisions about the object, in order.", false, &[], get(super::overrides::list_overrides)),
         r("post", "/v1/objects/{id}/overrides", "An analyst's decision (JSON: action, its argument, by, reason); triggers a refit.", true, &[], post(super::overrides::post_override)),
         r("post", "/v1/observations", "Observations (ADES PSV or XML, or JSON lines) through the same ingest as the watched directory.", true, &[], post(post_observations)),
@@ -555,21 +555,6 @@ async fn observations(
         observations: list,
         next_cursor: next.map(|k| to_hex(&k)),
     }))
-}
-
-async fn refit(
-    State(s): State<ApiState>,
-    headers: HeaderMap,
-    Path(id): Path<String>,
-) -> Result<Response, ApiError> {
-    require_token(s.0.token.as_deref(), &headers)?;
-    let object = find_object(&s, id).await?;
-    s.0.intake.queue.mark(&object.id, Trigger::Manual);
-    Ok((
-        StatusCode::ACCEPTED,
-        Json(serde_json::json!({ "queued": object.id, "trigger": "manual" })),
-    )
-        .into_response())
 }
 
 /// The file extension a posted body is kept under, from its content type

@@ -211,6 +211,10 @@ pub enum OverrideAction {
     ClearModel { model: String },
     /// These designations name this object.
     Link { designations: Vec<String> },
+    /// Refit now. Decides nothing else; journaled like a decision so that
+    /// a refit asked for survives a stop before it ran, and so the history
+    /// says who asked and why.
+    Refit,
 }
 
 /// The overrides in force after a list of them, in journal order.
@@ -255,7 +259,7 @@ impl OverrideState {
                     }
                     s.excluded_models.remove(model);
                 }
-                OverrideAction::Link { .. } => {}
+                OverrideAction::Link { .. } | OverrideAction::Refit => {}
             }
         }
         s
@@ -413,12 +417,21 @@ impl ObjectState {
     /// Observations arrived, or an analyst decided, since the latest fit
     /// saw its inputs.
     pub fn needs_refit(&self) -> bool {
-        self.merged_into.is_none()
-            && self.observations > 0
-            && self
-                .last_obs_journal_seq
-                .max(self.last_override_journal_seq)
-                > self.latest_inputs_journal_seq
+        self.due().is_some()
+    }
+
+    /// Why the object is due for a refit, if it is: new observations
+    /// first, else an analyst's decision (or a refit asked for).
+    pub fn due(&self) -> Option<Trigger> {
+        if self.merged_into.is_some() || self.observations == 0 {
+            None
+        } else if self.last_obs_journal_seq > self.latest_inputs_journal_seq {
+            Some(Trigger::NewObservations)
+        } else if self.last_override_journal_seq > self.latest_inputs_journal_seq {
+            Some(Trigger::Override)
+        } else {
+            None
+        }
     }
 }
 

@@ -331,3 +331,45 @@ fn an_older_index_is_rebuilt_from_the_journal() {
         .unwrap();
     assert_eq!(schema.as_ref(), &SCHEMA_VERSION.to_be_bytes());
 }
+
+/// A refit asked for is journaled like a decision: the object is due
+/// until a solution has seen it, across a reopen (a stop of the daemon).
+#[test]
+fn a_refit_asked_for_keeps_the_object_due_until_a_fit_saw_it() {
+    let dir = tempfile::tempdir().unwrap();
+    let id = {
+        let store = SledStore::open(dir.path()).unwrap();
+        store
+            .add_observations(origin("a.psv"), fixture_entries())
+            .unwrap();
+        let id = store.objects().unwrap()[0].id.clone();
+        store
+            .add_solution(record(&id, 1, store.journal_seq()))
+            .unwrap();
+        assert_eq!(store.object(&id).unwrap().unwrap().due(), None);
+        store
+            .add_override(OverrideRecord {
+                object_id: id.clone(),
+                action: OverrideAction::Refit,
+                by: "test".into(),
+                reason: "test".into(),
+                at_utc: "2026-12-03T12:00:00Z".into(),
+                journal_seq: 0,
+            })
+            .unwrap();
+        id
+    };
+    let store = SledStore::open(dir.path()).unwrap();
+    assert_eq!(
+        store.object(&id).unwrap().unwrap().due(),
+        Some(Trigger::Override)
+    );
+    assert_eq!(
+        OverrideState::of(&store.overrides(&id).unwrap()),
+        OverrideState::default()
+    );
+    store
+        .add_solution(record(&id, 2, store.journal_seq()))
+        .unwrap();
+    assert_eq!(store.object(&id).unwrap().unwrap().due(), None);
+}

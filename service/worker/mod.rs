@@ -6,8 +6,9 @@
 //!
 //! On shutdown the running fits are cancelled at their next iteration and
 //! nothing of theirs is stored; the objects stay due in the store (their
-//! newest observations are newer than their latest solution), so the next
-//! start refits them: the queue is persisted by construction.
+//! newest observations, or an analyst's newest decision or refit request,
+//! are newer than their latest solution's inputs), so the next start
+//! refits them: the queue is persisted by construction.
 
 pub mod debounce;
 pub mod job;
@@ -85,8 +86,10 @@ pub async fn run(
     match ctx.store.objects() {
         Ok(objects) => {
             let now = std::time::Instant::now();
-            for o in objects.iter().filter(|o| o.needs_refit()) {
-                debounce.mark(&o.id, now, Trigger::NewObservations);
+            for o in &objects {
+                if let Some(trigger) = o.due() {
+                    debounce.mark(&o.id, now, trigger);
+                }
             }
         }
         Err(e) => tracing::error!("cannot list the objects due for a refit: {e}"),
