@@ -198,15 +198,34 @@ pub struct ApiSettings {
     pub token: Option<String>,
 }
 
-/// SMTP delivery of alerts.
+/// How alert e-mail leaves the machine.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+#[serde(tag = "transport", rename_all = "kebab-case")]
+pub enum MailTransport {
+    /// One `.eml` file per message into a directory: the embedded
+    /// default, which needs no mail server.
+    File {
+        directory: PathBuf,
+    },
+    Smtp(SmtpSettings),
+}
+
+/// Alert e-mail: the transport, the sender and the recipients.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct EmailSettings {
+    #[serde(flatten)]
+    pub transport: MailTransport,
+    pub from: String,
+    pub to: Vec<String>,
+}
+
+/// An SMTP relay.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SmtpSettings {
     pub smtp_host: String,
     pub smtp_port: u16,
     /// "none" (plain, loopback relays only), "starttls" or "tls".
     pub security: SmtpSecurity,
-    pub from: String,
-    pub to: Vec<String>,
     pub username: Option<String>,
     #[serde(skip)]
     pub password: Option<String>,
@@ -228,34 +247,80 @@ pub struct WebhookSettings {
     pub secret: Option<String>,
 }
 
-/// When to tell the team.
+/// The environment variables that can carry the SMTP password and the
+/// webhook secret instead of a file.
+pub const SMTP_PASSWORD_ENV: &str = "PERIHELIX_SMTP_PASSWORD";
+pub const WEBHOOK_SECRET_ENV: &str = "PERIHELIX_WEBHOOK_SECRET";
+
+/// When to tell the team, and how. Every rule fires when its value
+/// crosses its threshold and clears only once the value is back inside by
+/// `clear_fraction` of it, so a value hovering at the line raises one
+/// alert, not one per refit.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct AlertSettings {
-    /// Alert when the recommended model's eccentricity exceeds this.
-    pub eccentricity_above: f64,
-    /// Alert when the residual RMS exceeds this.
-    pub rms_arcsec_above: f64,
-    /// Alert when the non-gravitational significance exceeds this.
-    pub ng_significance_sigma_above: f64,
-    /// Fraction a value must fall back below a threshold before the alert
-    /// re-arms, so a value hovering at the line does not flood the inbox.
-    pub hysteresis_fraction: f64,
-    pub email: Option<EmailSettings>,
+    /// Original barycentric 1/a below zero by this many sigma: unbound.
+    pub unbound_sigma: f64,
+    /// Non-gravitational terms needed at this significance.
+    pub ng_significance_sigma: f64,
+    /// Gravity alone no longer explains the data above this normalised
+    /// RMS (or when its residual trend test fails at
+    /// `batch_p_value_below`).
+    pub gravity_normalized_rms_above: f64,
+    /// New data disagree with the previous solution's prediction below
+    /// this p-value.
+    pub batch_p_value_below: f64,
+    /// The predicted place moved more than this...
+    pub prediction_shift_arcsec: f64,
+    /// ...and more than this many of its sigmas...
+    pub prediction_shift_sigma: f64,
+    /// ...this many days after the fit.
+    pub prediction_days: Vec<f64>,
+    /// No converged fit for this long while data arrive.
+    pub no_solution_hours: f64,
+    /// How far back inside its threshold a value must come, as a fraction
+    /// of the threshold, before its rule clears.
+    pub clear_fraction: f64,
+    /// A failed delivery is tried again after this long, doubling each
+    /// time up to `retry_max_s`, and given up (marked dead, counted and
+    /// shown) after `give_up_after` attempts.
+    pub retry_first_s: f64,
+    pub retry_max_s: f64,
+    pub give_up_after: u32,
+    pub email: EmailSettings,
     pub webhook: Option<WebhookSettings>,
 }
 
-impl Default for AlertSettings {
-    fn default() -> Self {
+impl AlertSettings {
+    /// The defaults, with mail written as files under `mail_dir`.
+    pub fn defaults(mail_dir: PathBuf) -> Self {
         Self {
-            eccentricity_above: 1.0,
-            rms_arcsec_above: 1.0,
-            ng_significance_sigma_above: 3.0,
-            hysteresis_fraction: 0.05,
-            email: None,
+            unbound_sigma: 3.0,
+            ng_significance_sigma: 3.0,
+            gravity_normalized_rms_above: 1.5,
+            batch_p_value_below: 0.001,
+            prediction_shift_arcsec: 10.0,
+            prediction_shift_sigma: 3.0,
+            prediction_days: vec![7.0, 30.0],
+            no_solution_hours: 48.0,
+            clear_fraction: 0.2,
+            retry_first_s: 10.0,
+            retry_max_s: 900.0,
+            give_up_after: 12,
+            email: EmailSettings {
+                transport: MailTransport::File {
+                    directory: mail_dir,
+                },
+                from: DEFAULT_FROM.into(),
+                to: vec![DEFAULT_TO.into()],
+            },
             webhook: None,
         }
     }
 }
+
+/// Sender and recipient of the file transport when none are configured.
+const DEFAULT_FROM: &str = "perihelix <perihelix@localhost>";
+const DEFAULT_TO: &str = "orbit team <orbits@localhost>";
 
 /// The whole configuration.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -298,7 +363,7 @@ impl Config {
                 token: None,
             },
             logging: LoggingSettings::default(),
-            alerts: AlertSettings::default(),
+            alerts: AlertSettings::defaults(root.join("mail")),
         }
     }
 
@@ -501,7 +566,9 @@ fn read_config(top: &TableReader<'_, '_>, extra: &mut Vec<ConfigProblem>) -> Opt
             t.finish();
             a
         }
-        None => Some(AlertSettings::default()),
+        None => Some(AlertSettings::defaults(
+            top.source().base_dir().join("mail"),
+        )),
     };
 
     Some(Config {
@@ -776,18 +843,57 @@ fn read_secret(t: &TableReader<'_, '_>, key: &str, file_key: &str) -> Option<Str
 }
 
 fn read_alerts(t: &TableReader<'_, '_>) -> Option<AlertSettings> {
-    let d = AlertSettings::default();
-    let e = t.f64_where("eccentricity_above", false, positive);
-    let rms = t.f64_where("rms_arcsec_above", false, positive);
-    let ng = t.f64_where("ng_significance_sigma_above", false, positive);
-    let hyst = t.f64_where("hysteresis_fraction", false, |x| {
-        in_range(x, 0.0, 0.5, "fraction of the threshold")
+    let d = AlertSettings::defaults(t.source().base_dir().join("mail"));
+    let sigma = |x: f64| in_range(x, 0.5, 100.0, "sigma");
+    let unbound = t.f64_where("unbound_sigma", false, sigma);
+    let ng = t.f64_where("ng_significance_sigma", false, sigma);
+    let rms = t.f64_where("gravity_normalized_rms_above", false, |x| {
+        in_range(x, 1.0, 1000.0, "normalised RMS")
     });
-    let email = t.table("email").map(|m| {
-        let e = read_email(&m);
-        m.finish();
-        e
+    let p = t.f64_where("batch_p_value_below", false, |x| {
+        if x > 0.0 && x < 0.5 {
+            Ok(())
+        } else {
+            Err(format!("{x} is not a p-value between 0 and 0.5"))
+        }
     });
+    let shift = t.f64_where("prediction_shift_arcsec", false, positive);
+    let shift_sigma = t.f64_where("prediction_shift_sigma", false, sigma);
+    let days = t.f64_array("prediction_days", false);
+    if let Some(days) = &days {
+        if days.is_empty() || days.iter().any(|d| !(*d > 0.0 && *d <= 3660.0)) {
+            t.problem(
+                "prediction_days",
+                "give one or more days ahead, each above 0 and at most 3660",
+            );
+        }
+    }
+    let hours = t.f64_where("no_solution_hours", false, positive);
+    let clear = t.f64_where("clear_fraction", false, |x| {
+        in_range(x, 0.0, 0.9, "fraction of the threshold")
+    });
+    let retry_first = t.f64_where("retry_first_s", false, positive);
+    let retry_max = t.f64_where("retry_max_s", false, positive);
+    let give_up = t
+        .u64("give_up_after", false)
+        .and_then(|n| match u32::try_from(n) {
+            Ok(n) if (1..=1000).contains(&n) => Some(n),
+            _ => {
+                t.problem(
+                    "give_up_after",
+                    format!("{n} attempts is not between 1 and 1000"),
+                );
+                None
+            }
+        });
+    let email = match t.table("email") {
+        Some(m) => {
+            let e = read_email(&m, &d.email);
+            m.finish();
+            e
+        }
+        None => Some(d.email.clone()),
+    };
     let webhook = t.table("webhook").map(|w| {
         let url = w.string("url", true);
         if let Some(u) = &url {
@@ -795,7 +901,14 @@ fn read_alerts(t: &TableReader<'_, '_>) -> Option<AlertSettings> {
                 w.problem("url", format!("'{u}' is not an http(s) URL"));
             }
         }
-        let secret = read_secret(&w, "secret", "secret_file");
+        let secret = read_secret(&w, "secret", "secret_file")
+            .or_else(|| std::env::var(WEBHOOK_SECRET_ENV).ok());
+        if secret.is_none() {
+            w.problem(
+                "secret_file",
+                format!("a webhook needs a signing secret: secret_file, or {WEBHOOK_SECRET_ENV}"),
+            );
+        }
         w.finish();
         url.map(|url| WebhookSettings { url, secret })
     });
@@ -803,16 +916,89 @@ fn read_alerts(t: &TableReader<'_, '_>) -> Option<AlertSettings> {
         return None;
     }
     Some(AlertSettings {
-        eccentricity_above: e.unwrap_or(d.eccentricity_above),
-        rms_arcsec_above: rms.unwrap_or(d.rms_arcsec_above),
-        ng_significance_sigma_above: ng.unwrap_or(d.ng_significance_sigma_above),
-        hysteresis_fraction: hyst.unwrap_or(d.hysteresis_fraction),
-        email: email.flatten(),
+        unbound_sigma: unbound.unwrap_or(d.unbound_sigma),
+        ng_significance_sigma: ng.unwrap_or(d.ng_significance_sigma),
+        gravity_normalized_rms_above: rms.unwrap_or(d.gravity_normalized_rms_above),
+        batch_p_value_below: p.unwrap_or(d.batch_p_value_below),
+        prediction_shift_arcsec: shift.unwrap_or(d.prediction_shift_arcsec),
+        prediction_shift_sigma: shift_sigma.unwrap_or(d.prediction_shift_sigma),
+        prediction_days: days.unwrap_or(d.prediction_days),
+        no_solution_hours: hours.unwrap_or(d.no_solution_hours),
+        clear_fraction: clear.unwrap_or(d.clear_fraction),
+        retry_first_s: retry_first.unwrap_or(d.retry_first_s),
+        retry_max_s: retry_max.unwrap_or(d.retry_max_s),
+        give_up_after: give_up.unwrap_or(d.give_up_after),
+        email: email?,
         webhook: webhook.flatten(),
     })
 }
 
-fn read_email(m: &TableReader<'_, '_>) -> Option<EmailSettings> {
+/// `[alerts.email]`: the file transport (the default) or SMTP.
+fn read_email(m: &TableReader<'_, '_>, default: &EmailSettings) -> Option<EmailSettings> {
+    let smtp = match m.string("transport", false).as_deref() {
+        None | Some("file") => false,
+        Some("smtp") => true,
+        Some(other) => {
+            m.problem(
+                "transport",
+                format!("'{other}' is not one of \"file\", \"smtp\""),
+            );
+            return None;
+        }
+    };
+    let from = m.string("from", smtp);
+    let to = m.string_array("to", smtp);
+    for addr in from.iter().chain(to.iter().flatten()) {
+        if !looks_like_address(addr) {
+            let key = if Some(addr) == from.as_ref() {
+                "from"
+            } else {
+                "to"
+            };
+            m.problem(key, format!("'{addr}' is not an e-mail address"));
+        }
+    }
+    if to.as_ref().is_some_and(Vec::is_empty) {
+        m.problem("to", "at least one recipient is needed");
+    }
+    let transport = if smtp {
+        if m.has("directory") {
+            m.problem("directory", "only the file transport writes to a directory");
+        }
+        MailTransport::Smtp(read_smtp(m)?)
+    } else {
+        for key in [
+            "smtp_host",
+            "smtp_port",
+            "security",
+            "username",
+            "password",
+            "password_file",
+        ] {
+            if m.has(key) {
+                m.problem(
+                    key,
+                    "only the smtp transport uses it (transport = \"smtp\")",
+                );
+            }
+        }
+        let directory = m.path("directory", false);
+        match (directory, &default.transport) {
+            (Some(directory), _) => MailTransport::File { directory },
+            (None, t) => t.clone(),
+        }
+    };
+    if m.source().has_problem_under(&m.full_key("")) {
+        return None;
+    }
+    Some(EmailSettings {
+        transport,
+        from: from.unwrap_or_else(|| default.from.clone()),
+        to: to.unwrap_or_else(|| default.to.clone()),
+    })
+}
+
+fn read_smtp(m: &TableReader<'_, '_>) -> Option<SmtpSettings> {
     let host = m.string("smtp_host", true);
     let port = m
         .u64("smtp_port", false)
@@ -835,38 +1021,19 @@ fn read_email(m: &TableReader<'_, '_>) -> Option<EmailSettings> {
             None
         }
     };
-    let from = m.string("from", true);
-    let to = m.string_array("to", true);
-    for addr in from.iter().chain(to.iter().flatten()) {
-        if !looks_like_address(addr) {
-            let key = if Some(addr) == from.as_ref() {
-                "from"
-            } else {
-                "to"
-            };
-            m.problem(key, format!("'{addr}' is not an e-mail address"));
-        }
-    }
-    if to.as_ref().is_some_and(Vec::is_empty) {
-        m.problem("to", "at least one recipient is needed");
-    }
     let username = m.string("username", false);
-    let password = read_secret(m, "password", "password_file");
+    let password = read_secret(m, "password", "password_file")
+        .or_else(|| std::env::var(SMTP_PASSWORD_ENV).ok());
     let security = security?;
     let default_port = match security {
         SmtpSecurity::Tls => 465,
         SmtpSecurity::Starttls => 587,
         SmtpSecurity::None => 25,
     };
-    if m.source().has_problem_under(&m.full_key("")) {
-        return None;
-    }
-    Some(EmailSettings {
+    Some(SmtpSettings {
         smtp_host: host?,
         smtp_port: port.unwrap_or(default_port),
         security,
-        from: from?,
-        to: to?,
         username,
         password,
     })

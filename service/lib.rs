@@ -13,6 +13,8 @@
 //! - [`store`]: the daemon's journal (the truth) and its sled index.
 //! - [`watch`]: the incoming directory; taking a file into the store.
 //! - [`worker`]: refit scheduling and the refit job.
+//! - [`alerts`]: rules over each stored solution, the words of an alert,
+//!   and the outbox that delivers them by e-mail and webhook.
 //! - [`api`]: the JSON endpoint.
 //! - [`daemon`]: `perihelix serve`, the stages wired together, shutdown,
 //!   systemd notification and metrics.
@@ -21,6 +23,7 @@
 // then checkable against the source.
 #![allow(clippy::excessive_precision)]
 
+pub mod alerts;
 pub mod api;
 pub mod astro;
 pub mod config;

@@ -142,6 +142,12 @@ enum Command {
         #[arg(long)]
         dir: Option<PathBuf>,
     },
+    /// Send one test message on every configured alert channel (e-mail,
+    /// webhook) and report each result.
+    AlertTest {
+        #[arg(long, short, default_value = "/etc/perihelix/config.toml")]
+        config: PathBuf,
+    },
     /// Check a configuration file and report every problem at once.
     CheckConfig {
         /// The configuration file.
@@ -178,6 +184,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
             json,
         } => ingest(&files, config.as_deref(), stations.as_deref(), json),
         Command::Serve { config } => serve(&config),
+        Command::AlertTest { config } => alert_test(&config),
         Command::Rebuild { config } => rebuild(&config),
         Command::History {
             object,
@@ -268,6 +275,29 @@ fn serve(config: &Path) -> Result<ExitCode> {
     init_logging(&cfg);
     runtime(&cfg)?.block_on(perihelix::daemon::serve(cfg))?;
     Ok(ExitCode::SUCCESS)
+}
+
+fn alert_test(config: &Path) -> Result<ExitCode> {
+    let cfg = Config::load(config)?;
+    init_logging(&cfg);
+    let results = runtime(&cfg)?
+        .block_on(perihelix::alerts::outbox::test_every_channel(&cfg))
+        .map_err(anyhow::Error::msg)?;
+    let mut failed = 0;
+    for r in &results {
+        match &r.result {
+            Ok(()) => println!("{:<8} {}: sent", r.channel.name(), r.destination),
+            Err(e) => {
+                failed += 1;
+                println!("{:<8} {}: FAILED: {e}", r.channel.name(), r.destination);
+            }
+        }
+    }
+    Ok(if failed == 0 {
+        ExitCode::SUCCESS
+    } else {
+        ExitCode::FAILURE
+    })
 }
 
 fn rebuild(config: &Path) -> Result<ExitCode> {

@@ -5,6 +5,7 @@
 //! - [`routes`]: the handlers and the router.
 //! - [`predict`]: predictions from a stored solution.
 //! - [`overrides`]: an analyst's decisions about an object.
+//! - [`alerts`]: the alerts and their deliveries; acknowledgements.
 //! - [`auth`]: the bearer token writes need.
 //! - [`error`]: errors as JSON with a stable code.
 //!
@@ -12,6 +13,7 @@
 //! binds loopback unless configured otherwise (and then a token is
 //! required by the configuration itself).
 
+pub mod alerts;
 pub mod auth;
 pub mod error;
 pub mod overrides;

@@ -163,6 +163,8 @@ pub fn routes() -> Vec<Route> {
         r("post", "/v1/objects/{id}/refit", "Ask for a refit now (optional JSON: by, reason); journaled, so it survives a stop.", true, &[], post(super::overrides::post_refit)),
         r("get", "/v1/objects/{id}/overrides", "The analysts' decisions about the object, in order.", false, &[], get(super::overrides::list_overrides)),
         r("post", "/v1/objects/{id}/overrides", "An analyst's decision (JSON: action, its argument, by, reason); triggers a refit.", true, &[], post(super::overrides::post_override)),
+        r("get", "/v1/alerts", "Alerts, newest first, with their deliveries.", false, super::alerts::ALERT_QUERY, get(super::alerts::list)),
+        r("post", "/v1/alerts/{id}/ack", "Acknowledge an alert (optional JSON: by).", true, &[], post(super::alerts::acknowledge)),
         r("post", "/v1/observations", "Observations (ADES PSV or XML, or JSON lines) through the same ingest as the watched directory.", true, &[], post(post_observations)),
     ]
 }
@@ -298,7 +300,7 @@ async fn metrics(State(s): State<ApiState>) -> Response {
 }
 
 /// Runs a store read off the executor (sled reads can touch the disk).
-async fn blocking<T: Send + 'static>(
+pub(super) async fn blocking<T: Send + 'static>(
     s: &ApiState,
     f: impl FnOnce(&dyn Store) -> Result<T, crate::store::StoreError> + Send + 'static,
 ) -> Result<T, ApiError> {
@@ -370,7 +372,7 @@ struct Page {
     model: Option<String>,
 }
 
-fn page_limit(limit: Option<usize>) -> Result<usize, ApiError> {
+pub(super) fn page_limit(limit: Option<usize>) -> Result<usize, ApiError> {
     match limit {
         None => Ok(DEFAULT_PAGE),
         Some(n) if (1..=MAX_PAGE).contains(&n) => Ok(n),
@@ -518,11 +520,11 @@ struct ObservationPage {
     next_cursor: Option<String>,
 }
 
-fn to_hex(b: &[u8]) -> String {
+pub(super) fn to_hex(b: &[u8]) -> String {
     b.iter().map(|x| format!("{x:02x}")).collect()
 }
 
-fn from_hex(s: &str) -> Option<Vec<u8>> {
+pub(super) fn from_hex(s: &str) -> Option<Vec<u8>> {
     if !s.len().is_multiple_of(2) || s.len() > 512 {
         return None;
     }

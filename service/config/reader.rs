@@ -242,6 +242,29 @@ impl<'a, 's> TableReader<'a, 's> {
         Some(out)
     }
 
+    /// An array of numbers (integers accepted as for [`Self::f64`]).
+    pub fn f64_array(&self, key: &str, required: bool) -> Option<Vec<f64>> {
+        let arr = self.typed(key, required, "an array of numbers", |v| {
+            v.as_array().cloned()
+        })?;
+        let numbers: Option<Vec<f64>> = arr
+            .iter()
+            .map(|v| v.as_float().or_else(|| v.as_integer().map(|i| i as f64)))
+            .collect();
+        if numbers.is_none() {
+            self.problem(
+                key,
+                "expected an array of numbers, found something else in it",
+            );
+        }
+        numbers
+    }
+
+    /// Whether `key` is present, whatever its type (it counts as read).
+    pub fn has(&self, key: &str) -> bool {
+        self.entry(key).is_some()
+    }
+
     /// A path, resolved against the directory of the file it is written in.
     pub fn path(&self, key: &str, required: bool) -> Option<PathBuf> {
         let s = self.string(key, required)?;

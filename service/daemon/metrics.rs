@@ -20,6 +20,12 @@ pub struct Metrics {
     pub refits_failed: AtomicU64,
     pub queue_depth: AtomicU64,
     pub fits_running: AtomicU64,
+    pub alerts_raised: AtomicU64,
+    pub deliveries_made: AtomicU64,
+    pub delivery_failures: AtomicU64,
+    /// Gauges the outbox sets from the store after every pass.
+    pub deliveries_pending: AtomicU64,
+    pub deliveries_dead: AtomicU64,
     fit_buckets: [AtomicU64; FIT_BUCKETS_S.len()],
     fit_count: AtomicU64,
     /// Sum of fit durations in ms.
@@ -48,6 +54,11 @@ impl Metrics {
             refits_failed: AtomicU64::new(0),
             queue_depth: AtomicU64::new(0),
             fits_running: AtomicU64::new(0),
+            alerts_raised: AtomicU64::new(0),
+            deliveries_made: AtomicU64::new(0),
+            delivery_failures: AtomicU64::new(0),
+            deliveries_pending: AtomicU64::new(0),
+            deliveries_dead: AtomicU64::new(0),
             fit_buckets: Default::default(),
             fit_count: AtomicU64::new(0),
             fit_sum_ms: AtomicU64::new(0),
@@ -128,6 +139,31 @@ impl Metrics {
             "perihelix_refits_failed_total",
             "Refits that gave no converged solution (kept with the reason).",
             get(&self.refits_failed),
+        );
+        counter(
+            "perihelix_alerts_raised_total",
+            "Alerts raised (a rule crossed its threshold or cleared).",
+            get(&self.alerts_raised),
+        );
+        counter(
+            "perihelix_alert_deliveries_total",
+            "Alert deliveries made (e-mail or webhook).",
+            get(&self.deliveries_made),
+        );
+        counter(
+            "perihelix_alert_delivery_failures_total",
+            "Alert delivery attempts that failed (each is retried, until given up).",
+            get(&self.delivery_failures),
+        );
+        let _ = writeln!(
+            out,
+            "# HELP perihelix_alert_deliveries_pending Alert deliveries waiting to be made.\n# TYPE perihelix_alert_deliveries_pending gauge\nperihelix_alert_deliveries_pending {}",
+            get(&self.deliveries_pending)
+        );
+        let _ = writeln!(
+            out,
+            "# HELP perihelix_alert_deliveries_dead Alert deliveries given up after every retry.\n# TYPE perihelix_alert_deliveries_dead gauge\nperihelix_alert_deliveries_dead {}",
+            get(&self.deliveries_dead)
         );
         let _ = writeln!(
             out,

@@ -27,6 +27,7 @@ use std::time::Duration;
 use thiserror::Error;
 use tokio::sync::oneshot;
 
+use crate::alerts::outbox::Outbox;
 use crate::api::{router, ApiState};
 use crate::config::Config;
 use crate::store::{SledStore, Store, StoreError};
@@ -120,11 +121,27 @@ pub async fn serve(config: Config) -> Result<(), DaemonError> {
     let solve = Arc::new(
         crate::solve::SolveContext::new(&config).map_err(|e| DaemonError::Setup(e.to_string()))?,
     );
+    let listener = tokio::net::TcpListener::bind(config.api.bind)
+        .await
+        .map_err(|source| DaemonError::Bind {
+            addr: config.api.bind,
+            source,
+        })?;
+    let bound = listener.local_addr().map_err(DaemonError::Serve)?;
+    tracing::info!(address = %bound, "API listening");
+
+    let outbox_wake = Arc::new(tokio::sync::Notify::new());
+    let outbox = Outbox::new(store.clone(), &config.alerts, metrics.clone())
+        .map_err(|e| DaemonError::Setup(format!("alert delivery: {e}")))?;
+    tracing::info!(email = %outbox.mailer.describe(), webhook = outbox.webhook.as_ref().map_or("none", |w| w.url()), "alerts go to");
     let job = Arc::new(JobContext {
         config: config.clone(),
         store: store.clone(),
         solve: solve.clone(),
         identity: identity(&config),
+        api_base: format!("http://{bound}"),
+        outbox: outbox_wake.clone(),
+        metrics: metrics.clone(),
     });
     let intake = Arc::new(Intake {
         config: config.clone(),
@@ -142,15 +159,7 @@ pub async fn serve(config: Config) -> Result<(), DaemonError> {
         config.directories.database.join("staging"),
     );
 
-    let listener = tokio::net::TcpListener::bind(config.api.bind)
-        .await
-        .map_err(|source| DaemonError::Bind {
-            addr: config.api.bind,
-            source,
-        })?;
-    let bound = listener.local_addr().map_err(DaemonError::Serve)?;
-    tracing::info!(address = %bound, "API listening");
-
+    let outbox_task = tokio::spawn(outbox.run(outbox_wake, shutdown.clone()));
     let scheduler = tokio::spawn(crate::worker::run(
         job,
         requests,
@@ -196,6 +205,7 @@ pub async fn serve(config: Config) -> Result<(), DaemonError> {
 
     let _ = intake_task.await;
     let _ = scheduler.await;
+    let _ = outbox_task.await;
     match tokio::time::timeout(HTTP_GRACE, http).await {
         Ok(Ok(Ok(()))) => {}
         Ok(Ok(Err(e))) => tracing::error!("the HTTP server: {e}"),

@@ -16,6 +16,11 @@
 //! - `links`: journal seq (u64 BE) / index (u32 BE) -> designation group,
 //!   every group that changed the linker, in order, so the linker is
 //!   rebuilt exactly at open
+//! - `alerts`: journal seq (u64 BE) / index (u32 BE) -> [`AlertRecord`],
+//!   in the order raised
+//! - `alert_ids`: alert id -> its `alerts` key
+//! - `deliveries`: delivery id -> [`Delivery`] (one per alert and channel)
+//! - `pending`: delivery id -> nothing, for the deliveries still to make
 //! - `meta`: schema version and the journal position applied so far
 //!
 //! Each journal entry is applied in one sled transaction together with the
@@ -35,6 +40,8 @@ use crate::ingest::{DesignationKey, Linker, ObjectId};
 
 use super::error::StoreError;
 use super::journal::Span;
+use crate::alerts::event::{Acknowledgement, AlertRecord, Delivery, DeliveryAttempt};
+
 use super::records::{
     IndexedObservation, JournalEntry, JournalLine, ObjectState, ObservationEntry, OverrideAction,
     OverrideRecord, SolutionRecord, SolutionSummary,
@@ -43,9 +50,10 @@ use super::records::{
 /// The schema this program writes. Version 1: solution records (without
 /// residuals) in `solutions`, residuals in a tree of their own, no
 /// `summaries`; version 2 added `summaries`; version 3 keeps journal spans
-/// in `solutions` and drops the residuals tree. An older index is emptied
-/// and rebuilt from the journal at open, which is what the journal is for.
-pub const SCHEMA_VERSION: u32 = 3;
+/// in `solutions` and drops the residuals tree; version 4 adds the alert
+/// trees. An older index is emptied and rebuilt from the journal at open,
+/// which is what the journal is for.
+pub const SCHEMA_VERSION: u32 = 4;
 
 /// sled's cache; its default (1 GiB) would let the daemon grow far beyond
 /// what an observatory machine should give it.
@@ -68,6 +76,10 @@ pub struct Index {
     overrides: Tree,
     names: Tree,
     links: Tree,
+    alerts: Tree,
+    alert_ids: Tree,
+    deliveries: Tree,
+    pending: Tree,
     meta: Tree,
     /// The designation linker as of the applied position (the only
     /// writer is the one applying entries).
@@ -158,6 +170,10 @@ impl Index {
             overrides: tree("overrides")?,
             names: tree("names")?,
             links: tree("links")?,
+            alerts: tree("alerts")?,
+            alert_ids: tree("alert_ids")?,
+            deliveries: tree("deliveries")?,
+            pending: tree("pending")?,
             meta: tree("meta")?,
             db,
             linker: Mutex::new(Linker::default()),
@@ -233,6 +249,10 @@ impl Index {
             &self.overrides,
             &self.names,
             &self.links,
+            &self.alerts,
+            &self.alert_ids,
+            &self.deliveries,
+            &self.pending,
         ] {
             tree.clear()?;
         }
@@ -317,7 +337,15 @@ impl Index {
                 self.apply_observations(line.seq, &[], Some(record), &applied)
             }
             JournalEntry::Solution { record } => {
-                self.apply_solution(record, span, &applied)?;
+                self.apply_solution(line.seq, record, span, &applied)?;
+                Ok(ObservationsApplied::default())
+            }
+            JournalEntry::Delivery { attempt } => {
+                self.apply_attempt(attempt, &applied)?;
+                Ok(ObservationsApplied::default())
+            }
+            JournalEntry::Acknowledge { ack } => {
+                self.apply_ack(ack, &applied)?;
                 Ok(ObservationsApplied::default())
             }
         }
@@ -550,6 +578,7 @@ impl Index {
 
     fn apply_solution(
         &self,
+        journal_seq: u64,
         record: &SolutionRecord,
         span: Span,
         applied: &[u8],
@@ -570,19 +599,172 @@ impl Index {
             }
         }
         let state = encode(&state)?;
-        let trees = (&self.solutions, &self.summaries, &self.objects, &self.meta);
-        let result = trees.transaction(|(solutions, summaries, objects, meta)| {
-            // History is never overwritten: an entry already there
-            // (a replay) is left as it is.
-            if solutions.get(key.as_slice())?.is_none() {
-                solutions.insert(key.as_slice(), value.as_slice())?;
-                summaries.insert(key.as_slice(), summary.as_slice())?;
-                objects.insert(record.object_id.as_bytes(), state.as_slice())?;
+        // The alerts it raised and their deliveries, in the same
+        // transaction: a solution is never indexed without its alerts.
+        let mut alerts = Vec::with_capacity(record.alerts.len());
+        for (k, event) in record.alerts.iter().enumerate() {
+            let mut akey = journal_seq.to_be_bytes().to_vec();
+            akey.extend_from_slice(&(k as u32).to_be_bytes());
+            let stored = AlertRecord {
+                event: event.clone(),
+                journal_seq,
+                acknowledged: None,
+            };
+            let deliveries = event
+                .channels
+                .iter()
+                .map(|c| {
+                    let d = Delivery::new(event, *c);
+                    Ok((d.id.clone(), encode(&d)?))
+                })
+                .collect::<Result<Vec<_>, StoreError>>()?;
+            alerts.push((akey, event.id.clone(), encode(&stored)?, deliveries));
+        }
+        let trees = (
+            &self.solutions,
+            &self.summaries,
+            &self.objects,
+            &self.alerts,
+            &self.alert_ids,
+            &self.deliveries,
+            &self.pending,
+            &self.meta,
+        );
+        let result = trees.transaction(
+            |(solutions, summaries, objects, alerts_t, ids, deliveries, pending, meta)| {
+                // History is never overwritten: an entry already there
+                // (a replay) is left as it is.
+                if solutions.get(key.as_slice())?.is_none() {
+                    solutions.insert(key.as_slice(), value.as_slice())?;
+                    summaries.insert(key.as_slice(), summary.as_slice())?;
+                    objects.insert(record.object_id.as_bytes(), state.as_slice())?;
+                    for (akey, id, stored, list) in &alerts {
+                        alerts_t.insert(akey.as_slice(), stored.as_slice())?;
+                        ids.insert(id.as_bytes(), akey.as_slice())?;
+                        for (did, d) in list {
+                            deliveries.insert(did.as_bytes(), d.as_slice())?;
+                            pending.insert(did.as_bytes(), &[] as &[u8])?;
+                        }
+                    }
+                }
+                meta.insert(META_APPLIED, applied)?;
+                Ok::<_, ConflictableTransactionError<()>>(())
+            },
+        );
+        tx_result(result)
+    }
+
+    fn apply_attempt(&self, attempt: &DeliveryAttempt, applied: &[u8]) -> Result<(), StoreError> {
+        let id = attempt.delivery_id.as_bytes();
+        let next = match self.deliveries.get(id)? {
+            Some(v) => decode::<Delivery>("deliveries", &v)?.after(attempt),
+            // An attempt for a delivery the index does not know: nothing to
+            // update (the journal is the truth, and it has the attempt).
+            None => return self.mark_applied(applied),
+        };
+        let value = encode(&next)?;
+        let pending = next.is_pending();
+        let trees = (&self.deliveries, &self.pending, &self.meta);
+        tx_result(trees.transaction(|(deliveries, pending_t, meta)| {
+            deliveries.insert(id, value.as_slice())?;
+            if pending {
+                pending_t.insert(id, &[] as &[u8])?;
+            } else {
+                pending_t.remove(id)?;
             }
             meta.insert(META_APPLIED, applied)?;
             Ok::<_, ConflictableTransactionError<()>>(())
-        });
-        tx_result(result)
+        }))
+    }
+
+    fn apply_ack(&self, ack: &Acknowledgement, applied: &[u8]) -> Result<(), StoreError> {
+        let Some(akey) = self.alert_ids.get(ack.alert_id.as_bytes())? else {
+            return self.mark_applied(applied);
+        };
+        let Some(v) = self.alerts.get(&akey)? else {
+            return self.mark_applied(applied);
+        };
+        let mut record: AlertRecord = decode("alerts", &v)?;
+        if record.acknowledged.is_none() {
+            record.acknowledged = Some(ack.clone());
+        }
+        let value = encode(&record)?;
+        let trees = (&self.alerts, &self.meta);
+        tx_result(trees.transaction(|(alerts, meta)| {
+            alerts.insert(&akey, value.as_slice())?;
+            meta.insert(META_APPLIED, applied)?;
+            Ok::<_, ConflictableTransactionError<()>>(())
+        }))
+    }
+
+    fn mark_applied(&self, applied: &[u8]) -> Result<(), StoreError> {
+        self.meta.insert(META_APPLIED, applied)?;
+        Ok(())
+    }
+
+    /// Alerts newest first, raised before the `before` key (an opaque
+    /// cursor from a previous page), that `keep` accepts, at most `limit`;
+    /// with the cursor of the next page.
+    pub fn alerts(
+        &self,
+        before: Option<&[u8]>,
+        limit: usize,
+        keep: &dyn Fn(&AlertRecord) -> bool,
+    ) -> Result<(Vec<AlertRecord>, Option<Vec<u8>>), StoreError> {
+        let range = match before {
+            Some(b) => self.alerts.range(..b.to_vec()),
+            None => self.alerts.range::<Vec<u8>, _>(..),
+        };
+        let mut out = Vec::new();
+        for item in range.rev() {
+            let (k, v) = item?;
+            let record: AlertRecord = decode("alerts", &v)?;
+            if !keep(&record) {
+                continue;
+            }
+            if out.len() == limit {
+                return Ok((out, Some(k.to_vec())));
+            }
+            out.push(record);
+        }
+        Ok((out, None))
+    }
+
+    pub fn alert(&self, id: &str) -> Result<Option<AlertRecord>, StoreError> {
+        let Some(akey) = self.alert_ids.get(id.as_bytes())? else {
+            return Ok(None);
+        };
+        match self.alerts.get(akey)? {
+            Some(v) => Ok(Some(decode("alerts", &v)?)),
+            None => Ok(None),
+        }
+    }
+
+    pub fn delivery(&self, id: &str) -> Result<Option<Delivery>, StoreError> {
+        match self.deliveries.get(id.as_bytes())? {
+            Some(v) => Ok(Some(decode("deliveries", &v)?)),
+            None => Ok(None),
+        }
+    }
+
+    /// The deliveries still to make, in id order.
+    pub fn pending_deliveries(&self) -> Result<Vec<Delivery>, StoreError> {
+        let mut out = Vec::new();
+        for item in self.pending.iter() {
+            let (k, _) = item?;
+            if let Some(v) = self.deliveries.get(&k)? {
+                out.push(decode("deliveries", &v)?);
+            }
+        }
+        Ok(out)
+    }
+
+    /// Every delivery, for counts (few: one per alert and channel).
+    pub fn all_deliveries(&self) -> Result<Vec<Delivery>, StoreError> {
+        self.deliveries
+            .iter()
+            .map(|item| decode("deliveries", &item?.1))
+            .collect()
     }
 
     /// Every object not merged into another, in id order.

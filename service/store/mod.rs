@@ -33,6 +33,7 @@ pub use records::{
     StoredObservation, Trigger,
 };
 
+use crate::alerts::event::{Acknowledgement, AlertRecord, Delivery, DeliveryAttempt};
 use index::Index;
 use journal::{Journal, JournalReader, Span};
 
@@ -81,6 +82,24 @@ pub trait Store: Send + Sync {
     fn overrides(&self, id: &str) -> Result<Vec<OverrideRecord>, StoreError>;
     /// The residuals of a solution (an empty list for a failed fit).
     fn residuals(&self, id: &str, seq: u64) -> Result<Option<serde_json::Value>, StoreError>;
+    /// Journals one delivery attempt (fsync), then indexes it.
+    fn record_attempt(&self, attempt: DeliveryAttempt) -> Result<(), StoreError>;
+    /// Journals an acknowledgement (fsync), then indexes it.
+    fn acknowledge(&self, ack: Acknowledgement) -> Result<(), StoreError>;
+    /// Alerts newest first, before an opaque cursor, that `keep` accepts,
+    /// at most `limit`; with the next page's cursor.
+    fn alerts(
+        &self,
+        before: Option<&[u8]>,
+        limit: usize,
+        keep: &dyn Fn(&AlertRecord) -> bool,
+    ) -> Result<(Vec<AlertRecord>, Option<Vec<u8>>), StoreError>;
+    fn alert(&self, id: &str) -> Result<Option<AlertRecord>, StoreError>;
+    fn delivery(&self, id: &str) -> Result<Option<Delivery>, StoreError>;
+    /// The deliveries still to make.
+    fn pending_deliveries(&self) -> Result<Vec<Delivery>, StoreError>;
+    /// Every delivery.
+    fn deliveries(&self) -> Result<Vec<Delivery>, StoreError>;
     /// The last journal sequence number.
     fn journal_seq(&self) -> u64;
     /// Makes what is indexed survive a crash of the process.
@@ -346,6 +365,41 @@ impl Store for SledStore {
 
     fn overrides(&self, id: &str) -> Result<Vec<OverrideRecord>, StoreError> {
         self.index.overrides(id)
+    }
+
+    fn record_attempt(&self, attempt: DeliveryAttempt) -> Result<(), StoreError> {
+        self.append_and_apply(JournalEntry::Delivery { attempt })?;
+        self.index.flush()
+    }
+
+    fn acknowledge(&self, ack: Acknowledgement) -> Result<(), StoreError> {
+        self.append_and_apply(JournalEntry::Acknowledge { ack })?;
+        self.index.flush()
+    }
+
+    fn alerts(
+        &self,
+        before: Option<&[u8]>,
+        limit: usize,
+        keep: &dyn Fn(&AlertRecord) -> bool,
+    ) -> Result<(Vec<AlertRecord>, Option<Vec<u8>>), StoreError> {
+        self.index.alerts(before, limit, keep)
+    }
+
+    fn alert(&self, id: &str) -> Result<Option<AlertRecord>, StoreError> {
+        self.index.alert(id)
+    }
+
+    fn delivery(&self, id: &str) -> Result<Option<Delivery>, StoreError> {
+        self.index.delivery(id)
+    }
+
+    fn pending_deliveries(&self) -> Result<Vec<Delivery>, StoreError> {
+        self.index.pending_deliveries()
+    }
+
+    fn deliveries(&self) -> Result<Vec<Delivery>, StoreError> {
+        self.index.all_deliveries()
     }
 
     fn journal_seq(&self) -> u64 {

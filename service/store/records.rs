@@ -10,6 +10,8 @@ use std::sync::Arc;
 
 use serde::{Deserialize, Serialize};
 
+use crate::alerts::event::{Acknowledgement, AlertEvent, DeliveryAttempt, RuleStates};
+
 use crate::config::StationList;
 use crate::ingest::{
     revalidate, BlockContext, ContentKey, DesignationKey, Field, ObjectId, Observation, RecordText,
@@ -177,6 +179,10 @@ pub enum JournalEntry {
     Solution { record: Box<SolutionRecord> },
     /// An analyst's decision about an object.
     Override { record: OverrideRecord },
+    /// One attempt to deliver an alert.
+    Delivery { attempt: DeliveryAttempt },
+    /// An analyst acknowledged an alert.
+    Acknowledge { ack: Acknowledgement },
 }
 
 /// What an analyst decided, by whom, when and why.
@@ -351,6 +357,13 @@ pub struct SolutionRecord {
     /// The analysts' decisions in force for this fit.
     #[serde(default)]
     pub overrides: Vec<OverrideRecord>,
+    /// The alerts this solution raised (journaled with it, so neither is
+    /// ever stored without the other).
+    #[serde(default)]
+    pub alerts: Vec<AlertEvent>,
+    /// Every alert rule's state for the object after this solution.
+    #[serde(default)]
+    pub alert_states: RuleStates,
 }
 
 /// New observations against the previous solution's prediction.
@@ -369,6 +382,11 @@ pub struct BatchCheck {
     pub log10_p_value: Option<f64>,
     pub sigma: Option<f64>,
     pub not_made: Option<String>,
+    /// The files and stations the new observations came from.
+    #[serde(default)]
+    pub files: Vec<String>,
+    #[serde(default)]
+    pub stations: Vec<String>,
 }
 
 /// What the index knows of an object.

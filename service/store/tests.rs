@@ -41,6 +41,8 @@ fn record(id: &str, seq: u64, inputs: u64) -> SolutionRecord {
         reference_epoch_tdb_days_j2000: None,
         new_batch: None,
         overrides: Vec::new(),
+        alerts: Vec::new(),
+        alert_states: Default::default(),
     }
 }
 

@@ -9,7 +9,9 @@ use std::time::Instant;
 
 use sha2::{Digest, Sha256};
 
+use crate::alerts::facts::{solution_facts, BatchFacts, FactsInput};
 use crate::astro::time::Epoch;
+use crate::astro::time::UtcTime;
 use crate::config::{Config, EphemerisChoice};
 use crate::fit::consistency::batch_consistency;
 use crate::fit::lsq::Cancel;
@@ -31,6 +33,11 @@ pub struct JobContext {
     pub solve: Arc<SolveContext>,
     /// What the solutions were computed with (see [`identity`]).
     pub identity: BTreeMap<String, String>,
+    /// The API's address as links in alerts give it (`http://HOST:PORT`).
+    pub api_base: String,
+    /// Told when a stored solution raised alerts.
+    pub outbox: Arc<tokio::sync::Notify>,
+    pub metrics: Arc<crate::daemon::metrics::Metrics>,
 }
 
 #[derive(Debug, thiserror::Error)]
@@ -205,28 +212,79 @@ pub fn refit(
     if cancel.is_set() || matches!(outcome, Err(SolveError::Cancelled)) {
         return Ok(None);
     }
-    let new_batch = batch_check(ctx, &state, &stored);
+    let previous = ctx.store.solutions(&state.id, None, 1)?.into_iter().next();
+    let new_batch = previous.as_ref().and_then(|p| batch_check(ctx, p, &stored));
     let (created_utc, _) = now_utc();
     let seq = state.solutions + 1;
-    let (summary, document, reference_epoch) = match outcome {
-        Ok(solved) => {
-            let doc = SolutionDocument::new(&solved);
-            let value = serde_json::to_value(&doc).ok();
-            let reference = state
-                .reference_epoch_tdb_days_j2000
-                .unwrap_or_else(|| solved.solution.epoch.tdb_days_since_j2000());
-            (
-                summary(&doc, seq, &created_utc, trigger),
-                value,
-                Some(reference),
-            )
-        }
-        Err(e) => (
-            SolutionSummary::failed(seq, &created_utc, trigger, records.len(), e.to_string()),
+    let (doc, failure) = match outcome {
+        Ok(solved) => (
+            Some((SolutionDocument::new(&solved), solved.solution.epoch)),
             None,
+        ),
+        Err(e) => (None, Some(e.to_string())),
+    };
+    let document = doc.as_ref().and_then(|(d, _)| serde_json::to_value(d).ok());
+    let (summary, reference_epoch) = match (&doc, &failure) {
+        (Some((d, epoch)), _) => (
+            summary(d, seq, &created_utc, trigger),
+            Some(
+                state
+                    .reference_epoch_tdb_days_j2000
+                    .unwrap_or_else(|| epoch.tdb_days_since_j2000()),
+            ),
+        ),
+        (None, why) => (
+            SolutionSummary::failed(
+                seq,
+                &created_utc,
+                trigger,
+                records.len(),
+                why.clone().unwrap_or_default(),
+            ),
             state.reference_epoch_tdb_days_j2000,
         ),
     };
+    let facts = solution_facts(
+        &ctx.solve,
+        &ctx.config.stations,
+        &FactsInput {
+            object_id: &state.id,
+            designation: &name,
+            seq,
+            created_utc: &created_utc,
+            observations: records.len(),
+            document: doc.as_ref().map(|(d, _)| d),
+            document_value: document.as_ref(),
+            failure: failure.as_deref(),
+            previous_seq: previous.as_ref().map(|p| p.seq),
+            previous_document: previous.as_ref().and_then(|p| p.document.as_ref()),
+            previous_recommended: previous
+                .as_ref()
+                .and_then(|p| p.summary.recommended.as_deref()),
+            previous_last_obs_utc: previous
+                .as_ref()
+                .and_then(|p| p.document.as_ref())
+                .and_then(|d| d["last_obs_utc"].as_str()),
+            batch: new_batch.as_ref().map(batch_facts),
+            hours_without_solution: hours_without_solution(ctx, &state.id, &created_utc),
+            prediction_days: &ctx.config.alerts.prediction_days,
+        },
+    );
+    let states = previous
+        .as_ref()
+        .map(|p| p.alert_states.clone())
+        .unwrap_or_default();
+    let (alerts, alert_states) = crate::alerts::raise(
+        &ctx.config.alerts,
+        &facts,
+        &states,
+        &ctx.api_base,
+        &created_utc,
+    );
+    let raised = alerts.len();
+    for a in &alerts {
+        tracing::info!(object = %state.id, seq, alert = %a.id, "alert: {}", a.subject);
+    }
     let record = SolutionRecord {
         object_id: state.id.clone(),
         seq,
@@ -239,9 +297,15 @@ pub fn refit(
         reference_epoch_tdb_days_j2000: reference_epoch,
         new_batch,
         overrides,
+        alerts,
+        alert_states,
     };
     ctx.store.add_solution(record)?;
     ctx.store.flush()?;
+    if raised > 0 {
+        crate::daemon::metrics::Metrics::add(&ctx.metrics.alerts_raised, raised as u64);
+        ctx.outbox.notify_one();
+    }
     Ok(Some(summary))
 }
 
@@ -250,16 +314,9 @@ pub fn refit(
 /// there is no previous solution or nothing new.
 fn batch_check(
     ctx: &JobContext,
-    state: &ObjectState,
+    previous: &SolutionRecord,
     stored: &[IndexedObservation],
 ) -> Option<BatchCheck> {
-    let previous = match ctx.store.solutions(&state.id, None, 1) {
-        Ok(list) => list.into_iter().next()?,
-        Err(e) => {
-            tracing::warn!(object = %state.id, "cannot read the previous solution: {e}");
-            return None;
-        }
-    };
     let fresh: Vec<Observation> = stored
         .iter()
         .filter(|o| o.journal_seq > previous.inputs_journal_seq)
@@ -277,6 +334,18 @@ fn batch_check(
         log10_p_value: None,
         sigma: None,
         not_made: None,
+        files: sorted_unique(
+            stored
+                .iter()
+                .filter(|o| o.journal_seq > previous.inputs_journal_seq)
+                .map(|o| o.entry.record.file.clone()),
+        ),
+        stations: sorted_unique(
+            stored
+                .iter()
+                .filter(|o| o.journal_seq > previous.inputs_journal_seq)
+                .map(|o| o.entry.station.clone()),
+        ),
     };
     let settings = &ctx.solve.settings;
     let fit = match model_fit(
@@ -311,4 +380,47 @@ fn batch_check(
         Err(e) => check.not_made = Some(e.to_string()),
     }
     Some(check)
+}
+
+fn sorted_unique(items: impl Iterator<Item = String>) -> Vec<String> {
+    items
+        .collect::<std::collections::BTreeSet<_>>()
+        .into_iter()
+        .collect()
+}
+
+fn batch_facts(b: &BatchCheck) -> BatchFacts {
+    BatchFacts {
+        against_seq: b.against_solution,
+        observations: b.observations,
+        chi2: b.chi2,
+        dof: b.dof,
+        p_value: b.p_value,
+        log10_p_value: b.log10_p_value,
+        files: b.files.clone(),
+        stations: b.stations.clone(),
+    }
+}
+
+/// Hours from the latest converged solution (else from the first
+/// solution, when none converged) to `now_utc`; None for an object's
+/// first solution.
+fn hours_without_solution(ctx: &JobContext, id: &str, now_utc: &str) -> Option<f64> {
+    let summaries = match ctx.store.summaries(id, None, usize::MAX) {
+        Ok(s) => s,
+        Err(e) => {
+            tracing::warn!(object = %id, "cannot read the solution history: {e}");
+            return None;
+        }
+    };
+    let since = summaries
+        .iter()
+        .find(|s| s.converged)
+        .or(summaries.last())?;
+    let (a, b) = (
+        UtcTime::parse_iso8601(&since.created_utc).ok()?,
+        UtcTime::parse_iso8601(now_utc).ok()?,
+    );
+    let days = (b.mjd() - a.mjd()) as f64 + (b.seconds_of_day() - a.seconds_of_day()) / 86_400.0;
+    Some(days * 24.0)
 }
