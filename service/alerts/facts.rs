@@ -27,6 +27,8 @@ pub struct BatchFacts {
     pub dof: Option<usize>,
     pub p_value: Option<f64>,
     pub log10_p_value: Option<f64>,
+    /// New observations the new fit rejected, left out of the test.
+    pub outliers_left_out: usize,
     /// The files and stations the batch came from.
     pub files: Vec<String>,
     pub stations: Vec<String>,
@@ -45,7 +47,7 @@ pub struct PlaceFacts {
     /// The same from gravity alone, when that model converged.
     pub gravity_sigma_arcsec: Option<f64>,
     /// How far the previous solution's prediction for the same instant
-    /// lies, and that distance in sigmas of the new ellipse along it.
+    /// lies, and that distance in sigmas of the previous ellipse along it.
     pub shift_arcsec: Option<f64>,
     pub shift_sigma: Option<f64>,
 }
@@ -84,9 +86,15 @@ pub struct SolutionFacts {
     pub recommended: Option<String>,
     pub previous_seq: Option<u64>,
     pub previous_recommended: Option<String>,
+    /// The terms of the previous solution's recommended model.
+    pub previous_terms: Option<Vec<String>>,
     /// Of the recommended model.
     pub terms: Vec<String>,
     pub law: Option<String>,
+    /// Whether the data choose the recommended model's law: every other
+    /// law's fit with the same terms is at least [`LAW_BIC_MARGIN`] worse
+    /// in BIC.
+    pub law_determined: bool,
     pub nongrav: BTreeMap<String, ValueSigma>,
     pub one_over_a_original_per_au: Option<ValueSigma>,
     /// Heliocentric osculating, at the fit epoch.
@@ -111,6 +119,10 @@ pub struct SolutionFacts {
     /// was due, when none ever converged); None when this one converged.
     pub hours_without_solution: Option<f64>,
 }
+
+/// A BIC difference below this is not strong evidence (Kass & Raftery
+/// 1995, J. Am. Stat. Assoc. 90, 773, sec. 3.2).
+pub const LAW_BIC_MARGIN: f64 = 6.0;
 
 /// What the facts are built from.
 pub struct FactsInput<'a> {
@@ -176,8 +188,18 @@ pub fn solution_facts(
         recommended: recommended.map(|m| m.name.clone()),
         previous_seq: input.previous_seq,
         previous_recommended: input.previous_recommended.map(str::to_string),
+        previous_terms: input.previous_document.and_then(recommended_terms),
         terms: recommended.map(|m| m.terms.clone()).unwrap_or_default(),
         law: recommended.and_then(|m| m.law.clone()),
+        law_determined: recommended.is_some_and(|r| {
+            doc.into_iter()
+                .flat_map(|d| d.models.iter())
+                .filter(|m| m.converged && m.terms == r.terms && m.law != r.law)
+                .all(|m| match (m.bic, r.bic) {
+                    (Some(other), Some(this)) => other - this >= LAW_BIC_MARGIN,
+                    _ => false,
+                })
+        }),
         nongrav: recommended.map(|m| m.nongrav.clone()).unwrap_or_default(),
         one_over_a_original_per_au: recommended
             .and_then(|m| m.one_over_a_original.as_ref())
@@ -210,6 +232,16 @@ pub fn solution_facts(
             input.hours_without_solution
         },
     }
+}
+
+/// The terms of a stored document's recommended model.
+fn recommended_terms(doc: &Value) -> Option<Vec<String>> {
+    let name = doc["recommended"].as_str()?;
+    let model = doc["models"]
+        .as_array()?
+        .iter()
+        .find(|m| m["name"].as_str() == Some(name))?;
+    serde_json::from_value(model["terms"].clone()).ok()
 }
 
 /// The station that observed the object most (ties: the first in code
@@ -307,12 +339,14 @@ fn try_places(
         .collect())
 }
 
-/// The distance from the new place to the old one, arcsec, and in sigmas
-/// of the new ellipse along that direction.
+/// The distance from the old place to the new one, arcsec, and in sigmas
+/// of the old ellipse along that direction: whether observers pointing
+/// where they were told, with the uncertainty they were told, would now
+/// miss it.
 fn shift(now: &PlacePrediction, before: &PlacePrediction) -> (f64, Option<f64>) {
-    let offset = now.offset_arcsec(before.ra_rad, before.dec_rad);
+    let offset = before.offset_arcsec(now.ra_rad, now.dec_rad);
     let distance = offset.norm();
-    let sigmas = now.ellipse.mahalanobis2(offset).map(f64::sqrt);
+    let sigmas = before.ellipse.mahalanobis2(offset).map(f64::sqrt);
     (distance, sigmas)
 }
 

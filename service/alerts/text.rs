@@ -128,11 +128,18 @@ pub fn body(c: &Crossing, f: &SolutionFacts, s: &AlertSettings, solution_url: &s
         let threshold = m.threshold.map_or(String::new(), |x| {
             format!("; threshold {}", number(x, m.unit))
         });
+        let clears = m.clears_at.map_or(String::new(), |x| {
+            let side = if m.unit == "p-value" {
+                "above"
+            } else {
+                "below"
+            };
+            format!("; it clears {side} {}", number(x, m.unit))
+        });
         let _ = writeln!(
             t,
-            "Value: {} now, {before}{threshold}; it clears below {:.0}% of the threshold.\n",
-            number(m.value, m.unit),
-            100.0 * (1.0 - s.clear_fraction)
+            "Value: {} now, {before}{threshold}{clears}.\n",
+            number(m.value, m.unit)
         );
     }
     if !f.ladder.is_empty() {
@@ -253,6 +260,13 @@ fn what_happened(c: &Crossing, f: &SolutionFacts, s: &AlertSettings) -> String {
                     b.files.join(", "),
                     b.stations.join(", ")
                 );
+                if b.outliers_left_out > 0 {
+                    let _ = write!(
+                        t,
+                        "\n{} new observations were rejected as outliers by the new fit and are left out of the test.",
+                        b.outliers_left_out
+                    );
+                }
             }
         }
         RuleKind::PredictionShift => {

@@ -382,6 +382,11 @@ pub struct BatchCheck {
     pub log10_p_value: Option<f64>,
     pub sigma: Option<f64>,
     pub not_made: Option<String>,
+    /// New observations the new solution rejected as outliers, left out of
+    /// the test: one gross outlier says nothing about the orbit, and would
+    /// otherwise make the whole batch "disagree".
+    #[serde(default)]
+    pub outliers_left_out: usize,
     /// The files and stations the new observations came from.
     #[serde(default)]
     pub files: Vec<String>,

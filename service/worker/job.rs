@@ -3,7 +3,7 @@
 //! next solution record whatever the outcome. Blocking: run it on a
 //! blocking thread.
 
-use std::collections::BTreeMap;
+use std::collections::{BTreeMap, BTreeSet};
 use std::sync::Arc;
 use std::time::Instant;
 
@@ -213,7 +213,6 @@ pub fn refit(
         return Ok(None);
     }
     let previous = ctx.store.solutions(&state.id, None, 1)?.into_iter().next();
-    let new_batch = previous.as_ref().and_then(|p| batch_check(ctx, p, &stored));
     let (created_utc, _) = now_utc();
     let seq = state.solutions + 1;
     let (doc, failure) = match outcome {
@@ -223,6 +222,13 @@ pub fn refit(
         ),
         Err(e) => (None, Some(e.to_string())),
     };
+    let outliers = doc
+        .as_ref()
+        .map(|(d, _)| rejected_by(d))
+        .unwrap_or_default();
+    let new_batch = previous
+        .as_ref()
+        .and_then(|p| batch_check(ctx, p, &stored, &outliers));
     let document = doc.as_ref().and_then(|(d, _)| serde_json::to_value(d).ok());
     let (summary, reference_epoch) = match (&doc, &failure) {
         (Some((d, epoch)), _) => (
@@ -316,15 +322,23 @@ fn batch_check(
     ctx: &JobContext,
     previous: &SolutionRecord,
     stored: &[IndexedObservation],
+    outliers: &BTreeSet<(i64, i64, String)>,
 ) -> Option<BatchCheck> {
-    let fresh: Vec<Observation> = stored
+    let new: Vec<&IndexedObservation> = stored
         .iter()
         .filter(|o| o.journal_seq > previous.inputs_journal_seq)
-        .filter_map(|o| o.entry.record.observation(&ctx.config.stations).ok())
         .collect();
-    if fresh.is_empty() {
+    if new.is_empty() {
         return None;
     }
+    let is_outlier = |o: &IndexedObservation| {
+        time_key(&o.entry.obs_time_utc, &o.entry.station).is_some_and(|k| outliers.contains(&k))
+    };
+    let fresh: Vec<Observation> = new
+        .iter()
+        .filter(|o| !is_outlier(o))
+        .filter_map(|o| o.entry.record.observation(&ctx.config.stations).ok())
+        .collect();
     let mut check = BatchCheck {
         against_solution: previous.seq,
         observations: fresh.len(),
@@ -334,19 +348,14 @@ fn batch_check(
         log10_p_value: None,
         sigma: None,
         not_made: None,
-        files: sorted_unique(
-            stored
-                .iter()
-                .filter(|o| o.journal_seq > previous.inputs_journal_seq)
-                .map(|o| o.entry.record.file.clone()),
-        ),
-        stations: sorted_unique(
-            stored
-                .iter()
-                .filter(|o| o.journal_seq > previous.inputs_journal_seq)
-                .map(|o| o.entry.station.clone()),
-        ),
+        outliers_left_out: new.iter().filter(|o| is_outlier(o)).count(),
+        files: sorted_unique(new.iter().map(|o| file_name(&o.entry.record.file))),
+        stations: sorted_unique(new.iter().map(|o| o.entry.station.clone())),
     };
+    if fresh.is_empty() {
+        check.not_made = Some("every new observation was rejected as an outlier".into());
+        return Some(check);
+    }
     let settings = &ctx.solve.settings;
     let fit = match model_fit(
         previous.document.as_ref(),
@@ -397,6 +406,7 @@ fn batch_facts(b: &BatchCheck) -> BatchFacts {
         dof: b.dof,
         p_value: b.p_value,
         log10_p_value: b.log10_p_value,
+        outliers_left_out: b.outliers_left_out,
         files: b.files.clone(),
         stations: b.stations.clone(),
     }
@@ -423,4 +433,33 @@ fn hours_without_solution(ctx: &JobContext, id: &str, now_utc: &str) -> Option<f
     );
     let days = (b.mjd() - a.mjd()) as f64 + (b.seconds_of_day() - a.seconds_of_day()) / 86_400.0;
     Some(days * 24.0)
+}
+
+/// An observation's time (MJD, milliseconds of the day) and station: how
+/// a document's rejected list and the stored observations are matched.
+fn time_key(utc: &str, station: &str) -> Option<(i64, i64, String)> {
+    let t = UtcTime::parse_iso8601(utc).ok()?;
+    Some((
+        t.mjd(),
+        (t.seconds_of_day() * 1000.0).round() as i64,
+        station.to_string(),
+    ))
+}
+
+/// The observations the recommended model rejected as outliers.
+fn rejected_by(doc: &SolutionDocument) -> BTreeSet<(i64, i64, String)> {
+    doc.models
+        .iter()
+        .filter(|m| m.recommended)
+        .flat_map(|m| m.rejected.iter())
+        .filter_map(|r| time_key(&r.obs_time, &r.station))
+        .collect()
+}
+
+/// The name of an input file without its directory (where it was read
+/// from is the incoming or staging directory, which says nothing).
+fn file_name(path: &str) -> String {
+    std::path::Path::new(path)
+        .file_name()
+        .map_or_else(|| path.to_string(), |n| n.to_string_lossy().into_owned())
 }

@@ -1,11 +1,14 @@
 //! Shared pieces of the whole-path tests: the DE421 file and the synthetic
 //! astrometry fixtures of tests/reference/fixtures/synthetic/ (made by
 //! tests/reference/make_synthetic_astrometry.py with rebound 5.2.2,
-//! jplephem 2.24 and pyerfa 2.0.1.5; see tests/reference/README.md).
+//! jplephem 2.24 and pyerfa 2.0.1.5; see tests/reference/README.md), and
+//! the real loopback servers alerts are delivered to (smtp, webhook).
 #![allow(dead_code)]
 
 pub mod daemon;
+pub mod smtp;
 pub mod stress;
+pub mod webhook;
 
 use std::path::{Path, PathBuf};
 
