@@ -579,10 +579,8 @@ fn read_object(
         eprintln!("rejected: {r}");
     }
     let object = pick_object(&outcome.objects, wanted)?.clone();
-    let name = object
-        .designations
-        .first()
-        .map_or_else(|| object.id.to_string(), ToString::to_string);
+    let name = perihelix::ingest::DesignationKey::best_name(&object.designations)
+        .unwrap_or_else(|| object.id.to_string());
     Ok((name, object))
 }
 

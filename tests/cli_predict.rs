@@ -53,7 +53,7 @@ fn linear_predictions_beyond_the_arc() {
     let mut args = vec!["--station", "ZQD", "--json"];
     args.extend(AFTER_ARC);
     let doc = json(&perihelix(&args));
-    assert_eq!(doc["object"], "provID:2026 ZB1");
+    assert_eq!(doc["object"], "2026 ZB1", "the bare designation");
     assert_eq!(doc["method"], "linear");
     assert_eq!(doc["station"], "ZQD");
     assert!(doc["model"].as_str().is_some_and(|m| !m.is_empty()));

@@ -201,12 +201,11 @@ pub fn solution_facts(
                 })
         }),
         nongrav: recommended.map(|m| m.nongrav.clone()).unwrap_or_default(),
-        one_over_a_original_per_au: recommended
-            .and_then(|m| m.one_over_a_original.as_ref())
-            .map(|a| ValueSigma {
-                value: a.value,
-                sigma: a.sigma,
-            }),
+        // The bound verdict's figure: averaged over the models when the
+        // data cannot tell their laws apart.
+        one_over_a_original_per_au: doc
+            .and_then(|d| d.bound.as_ref())
+            .map(|b| b.one_over_a_original_per_au),
         e: elements.map(|e| e.e),
         e_minus_one_sigmas: elements.map(|e| e.e_minus_one_sigmas),
         v_inf_km_s: elements.and_then(|e| e.v_inf_km_s),

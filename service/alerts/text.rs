@@ -7,7 +7,6 @@
 use std::fmt::Write;
 
 use crate::config::AlertSettings;
-use crate::solve::document::ValueSigma;
 
 use super::event::{Edge, RuleKind};
 use super::facts::SolutionFacts;
@@ -18,22 +17,8 @@ pub const CAUTION: &str = "Predictions are for planning observations. This servi
 impact probabilities and does not replace the official orbit-computing services or review by \
 a qualified analyst.";
 
-/// A value with its sigma, both to two significant figures of the sigma;
-/// small numbers (1/a, A_i) in a shared power of ten.
-pub fn value_sigma(v: ValueSigma) -> String {
-    if !(v.sigma.is_finite() && v.sigma > 0.0) {
-        return format!("{:.6}", v.value);
-    }
-    let exponent = v.sigma.log10().floor() as i32;
-    if exponent < -3 && v.value.abs() < 1e-2 {
-        let scale = 10f64.powi(exponent);
-        let (value, sigma) = (v.value / scale, v.sigma / scale);
-        format!("({value:.1} ± {sigma:.1})e{exponent}")
-    } else {
-        let decimals = (1 - exponent).max(0) as usize;
-        format!("{:.*} ± {:.*}", decimals, v.value, decimals, v.sigma)
-    }
-}
+/// A value with its sigma, as the report prints it.
+pub use crate::solve::verdicts::value_with_sigma as value_sigma;
 
 /// A p-value readably: fixed above 0.001, else as a power of ten.
 pub fn p_value(p: f64) -> String {
@@ -391,18 +376,19 @@ fn escape(s: &str) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::solve::document::ValueSigma;
 
     /// Two significant figures of the sigma, by construction (the rule of
     /// the house; the digits are arithmetic, not from a source).
     #[test]
     fn values_carry_two_figures_of_their_sigma() {
         let vs = |value, sigma| value_sigma(ValueSigma { value, sigma });
-        assert_eq!(vs(1.001_32, 0.000_012), "1.001320 ± 0.000012");
-        assert_eq!(vs(2.1e-8, 3.4e-9), "(21.0 ± 3.4)e-9");
-        assert_eq!(vs(-3.52e-4, 1.04e-4), "(-3.5 ± 1.0)e-4");
-        assert_eq!(vs(0.8013, 0.012), "0.801 ± 0.012");
-        assert_eq!(vs(12.345, 1.5), "12.3 ± 1.5");
-        assert_eq!(vs(1234.0, 56.0), "1234 ± 56");
+        assert_eq!(vs(1.001_32, 0.000_012), "1.001320 +/- 0.000012");
+        assert_eq!(vs(2.1e-8, 3.4e-9), "(21.0 +/- 3.4)e-9");
+        assert_eq!(vs(-3.52e-4, 1.04e-4), "(-3.5 +/- 1.0)e-4");
+        assert_eq!(vs(0.8013, 0.012), "0.801 +/- 0.012");
+        assert_eq!(vs(12.345, 1.5), "12.3 +/- 1.5");
+        assert_eq!(vs(1234.0, 56.0), "1234 +/- 56");
         assert_eq!(p_value(0.2), "0.2000");
         assert_eq!(p_value(2.5e-7), "2.5e-7");
     }

@@ -89,11 +89,7 @@ pub async fn predictions(
     .map_err(|e| ApiError::new(StatusCode::INTERNAL_SERVER_ERROR, "internal", e.to_string()))??
     .ok_or_else(|| ApiError::not_found(format!("object {} has no such solution", object.id)))?;
     let seq = record.seq;
-    let name = object
-        .designations
-        .first()
-        .cloned()
-        .unwrap_or_else(|| object.id.clone());
+    let name = crate::worker::job::best_designation(&object);
     let doc = tokio::task::spawn_blocking(move || {
         let (model_name, fit) = model_fit(
             record.document.as_ref(),

@@ -30,6 +30,24 @@ pub enum DesignationKey {
 }
 
 impl DesignationKey {
+    /// The name a person knows an object by, of all its designations: the
+    /// permanent one, else the provisional one, else the tracklet name
+    /// with its station (`NAME@STATION`, as the API looks it up); without
+    /// the field prefix.
+    pub fn best_name<'a>(keys: impl IntoIterator<Item = &'a DesignationKey>) -> Option<String> {
+        let keys: Vec<&DesignationKey> = keys.into_iter().collect();
+        let rank = |k: &DesignationKey| match k {
+            DesignationKey::PermId(_) => 0,
+            DesignationKey::ProvId(_) => 1,
+            DesignationKey::TrkSub { .. } => 2,
+        };
+        let best = keys.iter().min_by_key(|k| rank(k))?;
+        Some(match best {
+            DesignationKey::PermId(t) | DesignationKey::ProvId(t) => t.clone(),
+            DesignationKey::TrkSub { name, station } => format!("{name}@{station}"),
+        })
+    }
+
     /// Parses the configuration's spelling: `permID:<text>`,
     /// `provID:<text>` or `trkSub:<name>@<station>`.
     pub fn parse(s: &str) -> Result<Self, String> {

@@ -82,6 +82,51 @@ pub struct BrightnessDocument {
     /// The preferred law, for predicted magnitudes.
     #[serde(skip)]
     pub law: Option<MagnitudeLaw>,
+    /// Fitted parameters outside what small bodies show, or not
+    /// determined at all, in words: the report prints these instead of
+    /// the numbers.
+    pub range_flags: Vec<String>,
+}
+
+/// Where the slope parameter G of small bodies lies, roughly (common
+/// practice: asteroid G values cluster between about -0.1 and 0.6; a
+/// margin is allowed either side).
+pub const G_PLAUSIBLE: (f64, f64) = (-0.25, 0.8);
+/// Where the total-magnitude slope K1 = 2.5 n of comets lies, roughly
+/// (common practice: activity indices n from 0 to about 16).
+pub const K1_PLAUSIBLE: (f64, f64) = (0.0, 40.0);
+
+/// A fitted (not fixed) parameter that is not determined (its sigma
+/// larger than itself) or lies outside `range`, in words; None when it
+/// can be printed as a result.
+pub fn range_flag(name: &str, v: &ValueSigma, fixed: bool, range: (f64, f64)) -> Option<String> {
+    if fixed {
+        return None;
+    }
+    if !(v.value.is_finite() && v.sigma.is_finite()) || v.sigma > v.value.abs() {
+        return Some(format!(
+            "{name} is not determined by these magnitudes ({:.2} +/- {:.2}: the sigma exceeds the value)",
+            v.value, v.sigma
+        ));
+    }
+    if v.value < range.0 || v.value > range.1 {
+        return Some(format!(
+            "{name} = {:.2} +/- {:.2} is outside what small bodies show ({} to {}): the fit is not physical, most likely too little phase or distance coverage",
+            v.value, v.sigma, range.0, range.1
+        ));
+    }
+    None
+}
+
+fn range_flags(total: Option<&TotalLawDocument>, hg: Option<&HgLawDocument>) -> Vec<String> {
+    let mut out = Vec::new();
+    if let Some(t) = total {
+        out.extend(range_flag("K1", &t.k1, t.k1_fixed, K1_PLAUSIBLE));
+    }
+    if let Some(h) = hg {
+        out.extend(range_flag("G", &h.g, h.g_fixed, G_PLAUSIBLE));
+    }
+    out
 }
 
 fn value_sigma(value: f64, variance: f64) -> ValueSigma {
@@ -160,6 +205,7 @@ pub fn brightness(
                 problems,
                 preferred: None,
                 law: None,
+                range_flags: Vec::new(),
             });
         }
     };
@@ -214,21 +260,24 @@ pub fn brightness(
         Some(_) => hg.as_ref().map(|h| h.law()),
         None => None,
     };
+    let total = total.map(|t| TotalLawDocument {
+        m1: value_sigma(t.m1, t.covariance[(0, 0)]),
+        k1: value_sigma(t.k1, t.covariance[(1, 1)]),
+        k1_fixed: t.k1_fixed,
+        activity_sigma: t.activity.map(|a| a.significance_sigma),
+        summary: law_summary(&t.summary, observations),
+    });
+    let hg = hg.map(|h| HgLawDocument {
+        h: value_sigma(h.h, h.covariance[(0, 0)]),
+        g: value_sigma(h.g, h.covariance[(1, 1)]),
+        g_fixed: h.g_fixed,
+        summary: law_summary(&h.summary, observations),
+    });
     Some(BrightnessDocument {
         measurements: magnitudes.len() + unknown.len(),
-        total: total.map(|t| TotalLawDocument {
-            m1: value_sigma(t.m1, t.covariance[(0, 0)]),
-            k1: value_sigma(t.k1, t.covariance[(1, 1)]),
-            k1_fixed: t.k1_fixed,
-            activity_sigma: t.activity.map(|a| a.significance_sigma),
-            summary: law_summary(&t.summary, observations),
-        }),
-        hg: hg.map(|h| HgLawDocument {
-            h: value_sigma(h.h, h.covariance[(0, 0)]),
-            g: value_sigma(h.g, h.covariance[(1, 1)]),
-            g_fixed: h.g_fixed,
-            summary: law_summary(&h.summary, observations),
-        }),
+        range_flags: range_flags(total.as_ref(), hg.as_ref()),
+        total,
+        hg,
         problems,
         preferred,
         law,

@@ -75,6 +75,11 @@ pub struct SolutionDocument {
     /// with the astrometry.
     pub photometry: Option<BrightnessDocument>,
     pub models: Vec<ModelDocument>,
+    /// Whether the data choose the recommended terms' radial law (absent
+    /// without terms, or without a rival law that converged).
+    pub law: Option<super::verdicts::LawVerdict>,
+    /// Came in bound or not, on the original barycentric 1/a.
+    pub bound: Option<super::verdicts::BoundVerdict>,
     /// Every observation's residual under the recommended model, in the
     /// order the fit saw them (empty when no model is recommended).
     pub residuals: Vec<ResidualDocument>,
@@ -461,6 +466,14 @@ impl SolutionDocument {
                 .map(utc)
                 .unwrap_or_default()
         };
+        let models: Vec<ModelDocument> = ladder
+            .models
+            .iter()
+            .zip(&solution.derived)
+            .map(|(m, d)| model_document(m, d.as_ref(), &ladder.models, &solution.observations))
+            .collect();
+        let law = super::verdicts::law_verdict(&models);
+        let bound = super::verdicts::bound_verdict(&models, law.as_ref());
         Self {
             object: solution.object.clone(),
             n_obs: solution.observations.len(),
@@ -486,12 +499,9 @@ impl SolutionDocument {
             ephemeris,
             catalog_bias,
             photometry,
-            models: ladder
-                .models
-                .iter()
-                .zip(&solution.derived)
-                .map(|(m, d)| model_document(m, d.as_ref(), &ladder.models, &solution.observations))
-                .collect(),
+            models,
+            law,
+            bound,
             residuals: solution
                 .recommended_fit()
                 .map(|f| residuals(f, &solution.observations))

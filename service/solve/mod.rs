@@ -31,6 +31,7 @@ pub mod report;
 pub mod settings;
 pub mod sources;
 pub mod stored;
+pub mod verdicts;
 
 #[cfg(test)]
 pub(crate) mod test_support;

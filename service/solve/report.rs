@@ -57,11 +57,20 @@ pub fn verdict(doc: &SolutionDocument) -> String {
             "Gravity alone fits, but the comparison with non-gravitational models could not be \
              made ({reason})."
         ),
-        (Some(r), Ok(sigma)) => format!(
-            "Gravity alone does not explain the data: {} is justified at {sigma:.1} sigma \
-             (Bonferroni over {} alternatives).",
-            r.name, doc.alternatives
-        ),
+        (Some(r), Ok(sigma)) => match &doc.law {
+            Some(law) if !law.determined => format!(
+                "Gravity alone does not explain the data: {} {} justified at {sigma:.1} sigma \
+                 (Bonferroni over {} alternatives), but which radial law is not determined.",
+                r.terms.join("+"),
+                if r.terms.len() == 1 { "is" } else { "are" },
+                doc.alternatives
+            ),
+            _ => format!(
+                "Gravity alone does not explain the data: {} is justified at {sigma:.1} sigma \
+                 (Bonferroni over {} alternatives).",
+                r.name, doc.alternatives
+            ),
+        },
         (Some(r), Err(reason)) => format!(
             "{} fits best, but the comparison with gravity alone could not be made ({reason}).",
             r.name
@@ -121,9 +130,13 @@ fn ladder_table(out: &mut String, doc: &SolutionDocument) {
 fn model_details(out: &mut String, doc: &SolutionDocument, m: &ModelDocument) {
     let _ = writeln!(
         out,
-        "\nModel {}: elements (heliocentric, ecliptic J2000, osculating at JD {:.1} TDB)",
+        "\nModel {}: elements (heliocentric osculating, ecliptic J2000, at JD {:.1} TDB)",
         m.name, doc.elements_epoch_tdb_jd
     );
+    // v_inf is a property of an orbit that came in unbound; for one that
+    // came in bound, a heliocentric e above 1 near the Sun is the planets'
+    // doing and a speed "at infinity" would mislead.
+    let unbound = doc.bound.as_ref().is_some_and(|b| b.verdict == "unbound");
     if let Some(e) = &m.elements {
         let _ = writeln!(out, "  q     {} au", estimate(&e.q_au, 8));
         let _ = writeln!(
@@ -137,7 +150,7 @@ fn model_details(out: &mut String, doc: &SolutionDocument, m: &ModelDocument) {
         let _ = writeln!(out, "  peri  {} deg", estimate(&e.peri_deg, 6));
         let _ = writeln!(out, "  Tp    JD {} TDB", estimate(&e.tp_tdb_jd, 6));
         let _ = writeln!(out, "  1/a   {} 1/au", estimate(&e.one_over_a_per_au, 8));
-        if let Some(v) = &e.v_inf_km_s {
+        if let (Some(v), true) = (&e.v_inf_km_s, unbound) {
             let _ = writeln!(out, "  v_inf {} km/s", estimate(v, 4));
         }
     }
@@ -211,12 +224,18 @@ pub fn text(doc: &SolutionDocument) -> String {
         }
         let _ = writeln!(out, "{line}");
     }
+    let _ = writeln!(out, "\nVerdict:\n  {}", verdict(doc));
+    if let Some(b) = &doc.bound {
+        let _ = writeln!(out, "  {}", b.text);
+    }
+    if let Some(l) = &doc.law {
+        let _ = writeln!(out, "  {}", l.text);
+    }
     let _ = writeln!(
         out,
         "\nModel ladder (* recommended; tests in Gaussian sigma):"
     );
     ladder_table(&mut out, doc);
-    let _ = writeln!(out, "\n{}", verdict(doc));
     if let Some(m) = doc.models.iter().find(|m| m.recommended) {
         model_details(&mut out, doc, m);
     }
@@ -243,8 +262,15 @@ Brightness ({} magnitudes, at the recommended orbit's geometry):",
         p.measurements
     );
     let mark = |law: &str| if p.preferred == Some(law) { "*" } else { " " };
+    use super::brightness::{range_flag, G_PLAUSIBLE, K1_PLAUSIBLE};
+    // A parameter outside what small bodies show is named in words below,
+    // not printed as a result.
+    let flagged = "see below";
     if let Some(t) = &p.total {
-        let k1 = free_or_fixed(&t.k1, t.k1_fixed);
+        let k1 = match range_flag("K1", &t.k1, t.k1_fixed, K1_PLAUSIBLE) {
+            Some(_) => flagged.to_string(),
+            None => free_or_fixed(&t.k1, t.k1_fixed),
+        };
         let _ = writeln!(
             out,
             "{} total law  M1 {:.2} +/- {:.2}  K1 {k1}  nrms {:.2}  {} used, {} rejected, {} brighter than the law{}",
@@ -260,7 +286,10 @@ Brightness ({} magnitudes, at the recommended orbit's geometry):",
         );
     }
     if let Some(h) = &p.hg {
-        let g = free_or_fixed(&h.g, h.g_fixed);
+        let g = match range_flag("G", &h.g, h.g_fixed, G_PLAUSIBLE) {
+            Some(_) => flagged.to_string(),
+            None => free_or_fixed(&h.g, h.g_fixed),
+        };
         let _ = writeln!(
             out,
             "{} (H, G) law  H {:.2} +/- {:.2}  G {g}  nrms {:.2}  {} used, {} rejected, {} brighter than the law",
@@ -272,6 +301,9 @@ Brightness ({} magnitudes, at the recommended orbit's geometry):",
             h.summary.rejected,
             h.summary.departures.len(),
         );
+    }
+    for flag in &p.range_flags {
+        let _ = writeln!(out, "  not a result: {flag}");
     }
     for problem in &p.problems {
         let _ = writeln!(out, "  note: {problem}");

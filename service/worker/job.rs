@@ -15,7 +15,7 @@ use crate::astro::time::UtcTime;
 use crate::config::{Config, EphemerisChoice};
 use crate::fit::consistency::batch_consistency;
 use crate::fit::lsq::Cancel;
-use crate::ingest::Observation;
+use crate::ingest::{DesignationKey, Observation};
 use crate::solve::document::SolutionDocument;
 use crate::solve::stored::model_fit;
 use crate::solve::{solve_records_in, SolveContext, SolveError, SolveRequest};
@@ -100,19 +100,15 @@ pub fn identity(config: &Config) -> BTreeMap<String, String> {
     out
 }
 
-/// The name a person knows the object by: its permanent designation, else
-/// its provisional one, else its tracklet name with the station.
+/// The name a person knows the object by (see
+/// [`DesignationKey::best_name`]).
 pub fn best_designation(state: &ObjectState) -> String {
-    for prefix in ["permID:", "provID:"] {
-        if let Some(d) = state.designations.iter().find(|d| d.starts_with(prefix)) {
-            return d[prefix.len()..].to_string();
-        }
-    }
-    state
+    let keys: Vec<DesignationKey> = state
         .designations
-        .first()
-        .map(|d| d.trim_start_matches("trkSub:").to_string())
-        .unwrap_or_else(|| state.id.clone())
+        .iter()
+        .filter_map(|d| DesignationKey::parse(d).ok())
+        .collect();
+    DesignationKey::best_name(&keys).unwrap_or_else(|| state.id.clone())
 }
 
 fn summary(
