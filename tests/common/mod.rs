@@ -5,6 +5,7 @@
 //! the real loopback servers alerts are delivered to (smtp, webhook).
 #![allow(dead_code)]
 
+pub mod comet;
 pub mod daemon;
 pub mod smtp;
 pub mod stress;
