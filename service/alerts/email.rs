@@ -15,7 +15,8 @@ use crate::config::{EmailSettings, MailTransport, SmtpSecurity, SmtpSettings};
 use super::event::AlertEvent;
 use super::text;
 
-/// How long one SMTP conversation may take.
+/// How long one SMTP conversation may take, from connect to the relay's
+/// last answer.
 const SMTP_TIMEOUT: Duration = Duration::from_secs(30);
 
 /// The domain part of every Message-ID.
@@ -76,15 +77,24 @@ impl Mailer {
                 transport,
                 host,
                 port,
-            } => transport
-                .send(message.clone())
-                .await
-                .map(|_| ())
-                .map_err(|e| MailError::Smtp {
+            } => {
+                let fail = |why: String| MailError::Smtp {
                     host: host.clone(),
                     port: *port,
-                    why: e.to_string(),
-                }),
+                    why,
+                };
+                // lettre's own timeout bounds the connect only: a relay
+                // that accepts and then says nothing would hold every
+                // delivery behind this one.
+                match tokio::time::timeout(SMTP_TIMEOUT, transport.send(message.clone())).await {
+                    Ok(Ok(_)) => Ok(()),
+                    Ok(Err(e)) => Err(fail(e.to_string())),
+                    Err(_) => Err(fail(format!(
+                        "no answer within {} s",
+                        SMTP_TIMEOUT.as_secs()
+                    ))),
+                }
+            }
         }
     }
 

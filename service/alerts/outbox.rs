@@ -37,6 +37,13 @@ fn unix_ms() -> u64 {
         .map_or(0, |d| d.as_millis() as u64)
 }
 
+fn earliest(a: Option<u64>, b: Option<u64>) -> Option<u64> {
+    match (a, b) {
+        (Some(a), Some(b)) => Some(a.min(b)),
+        (a, b) => a.or(b),
+    }
+}
+
 /// The wait before attempt `attempt + 1` after `attempt` failed.
 pub fn backoff(settings: &AlertSettings, attempt: u32) -> Duration {
     let doubled = settings.retry_first_s * 2f64.powi(attempt.saturating_sub(1).min(30) as i32);
@@ -68,8 +75,17 @@ impl Outbox {
 
     /// Runs until shutdown; `wake` is notified when new alerts are stored.
     pub async fn run(self, wake: Arc<Notify>, mut shutdown: Shutdown) {
+        // The pass watches its own copy, so the wait below can hold this one.
+        let watched = shutdown.clone();
         loop {
-            let next = match self.pass(&shutdown).await {
+            // A stop does not wait for a send in progress: one abandoned
+            // between its send and its record is sent again after the
+            // restart, under the same delivery id.
+            let result = tokio::select! {
+                r = self.pass(&watched) => r,
+                _ = shutdown.wait() => return,
+            };
+            let next = match result {
                 Ok(next) => next,
                 Err(e) => {
                     tracing::error!("alert outbox: {e}");
@@ -94,6 +110,48 @@ impl Outbox {
     /// Attempts every delivery that is due; returns when the next one
     /// waiting falls due (unix ms).
     async fn pass(&self, shutdown: &Shutdown) -> Result<Option<u64>, StoreError> {
+        let pending = self.refresh_gauges().await?;
+        // Each channel goes its own way: a mail relay that hangs until its
+        // timeout does not hold the webhook back, nor the other way round.
+        let (email, webhook): (Vec<Delivery>, Vec<Delivery>) = pending
+            .into_iter()
+            .partition(|d| d.channel == Channel::Email);
+        let (a, b) = tokio::join!(
+            self.attempt_due(email, shutdown),
+            self.attempt_due(webhook, shutdown)
+        );
+        self.refresh_gauges().await?;
+        Ok(earliest(a?, b?))
+    }
+
+    /// Attempts, one after another, those of `deliveries` that are due;
+    /// returns when the next one waiting falls due (unix ms).
+    async fn attempt_due(
+        &self,
+        deliveries: Vec<Delivery>,
+        shutdown: &Shutdown,
+    ) -> Result<Option<u64>, StoreError> {
+        let mut next: Option<u64> = None;
+        for d in deliveries {
+            if shutdown.is_set() {
+                break;
+            }
+            let DeliveryStatus::Pending { not_before_unix_ms } = d.status else {
+                continue;
+            };
+            let wait_until = if not_before_unix_ms > unix_ms() {
+                Some(not_before_unix_ms)
+            } else {
+                self.attempt(&d).await?
+            };
+            next = earliest(next, wait_until);
+        }
+        Ok(next)
+    }
+
+    /// Sets the pending and dead gauges from the store; returns the
+    /// deliveries pending.
+    async fn refresh_gauges(&self) -> Result<Vec<Delivery>, StoreError> {
         let store = self.store.clone();
         let (pending, dead) = tokio::task::spawn_blocking(move || {
             let pending = store.pending_deliveries()?;
@@ -108,23 +166,7 @@ impl Outbox {
         .map_err(|e| StoreError::Sled(e.to_string()))??;
         Metrics::set(&self.metrics.deliveries_pending, pending.len() as u64);
         Metrics::set(&self.metrics.deliveries_dead, dead as u64);
-        let mut next: Option<u64> = None;
-        for d in pending {
-            if shutdown.is_set() {
-                break;
-            }
-            let DeliveryStatus::Pending { not_before_unix_ms } = d.status else {
-                continue;
-            };
-            if not_before_unix_ms > unix_ms() {
-                next = Some(next.map_or(not_before_unix_ms, |n| n.min(not_before_unix_ms)));
-                continue;
-            }
-            if let Some(retry_at) = self.attempt(&d).await? {
-                next = Some(next.map_or(retry_at, |n| n.min(retry_at)));
-            }
-        }
-        Ok(next)
+        Ok(pending)
     }
 
     /// One attempt, recorded; the time of the retry when it failed.

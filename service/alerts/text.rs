@@ -109,7 +109,10 @@ pub fn body(c: &Crossing, f: &SolutionFacts, s: &AlertSettings, solution_url: &s
         (Some(b), Some(p)) => format!("{} at solution {p}", number(b, m.unit)),
         _ => "none before".into(),
     };
-    if !m.unit.is_empty() {
+    // Gravity alone is judged on two figures at once (its normalised RMS
+    // and its trend test), which its own paragraph states with their
+    // limits; one "value" line would quote only one of them.
+    if !m.unit.is_empty() && m.rule != RuleKind::GravityFails {
         let threshold = m.threshold.map_or(String::new(), |x| {
             format!("; threshold {}", number(x, m.unit))
         });
@@ -219,7 +222,13 @@ fn what_happened(c: &Crossing, f: &SolutionFacts, s: &AlertSettings) -> String {
                     p_value(s.batch_p_value_below)
                 );
             }
-            t.push('.');
+            let keep = 1.0 - s.clear_fraction;
+            let _ = write!(
+                t,
+                ".\nIt clears once the normalised RMS is below {:.2} and the trend test's p above {}.",
+                s.gravity_normalized_rms_above * keep,
+                p_value(10f64.powf(s.batch_p_value_below.log10() * keep))
+            );
         }
         RuleKind::ModelChanged => {
             let _ = write!(

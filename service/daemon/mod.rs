@@ -59,28 +59,34 @@ pub enum DaemonError {
     Setup(String),
 }
 
-/// Waits for SIGTERM or ctrl-c.
-async fn stop_signal() {
-    let ctrl_c = async {
-        let _ = tokio::signal::ctrl_c().await;
-    };
+/// SIGTERM or SIGINT. The handlers are installed when this is called, not
+/// when the future is first polled: called before readiness is announced,
+/// a stop sent right after READY=1 is a clean stop, not the default
+/// action's sudden death.
+fn stop_signal() -> impl std::future::Future<Output = ()> {
     #[cfg(unix)]
-    let term = async {
-        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
-            Ok(mut s) => {
-                s.recv().await;
-            }
-            Err(e) => {
-                tracing::error!("cannot listen for SIGTERM: {e}");
-                std::future::pending::<()>().await;
+    {
+        use tokio::signal::unix::{signal, SignalKind};
+        let term = signal(SignalKind::terminate());
+        let interrupt = signal(SignalKind::interrupt());
+        async move {
+            match (term, interrupt) {
+                (Ok(mut t), Ok(mut i)) => {
+                    tokio::select! {
+                        _ = t.recv() => {},
+                        _ = i.recv() => {},
+                    }
+                }
+                (Err(e), _) | (_, Err(e)) => {
+                    tracing::error!("cannot listen for stop signals: {e}");
+                    std::future::pending::<()>().await;
+                }
             }
         }
-    };
+    }
     #[cfg(not(unix))]
-    let term = std::future::pending::<()>();
-    tokio::select! {
-        _ = ctrl_c => {},
-        _ = term => {},
+    async {
+        let _ = tokio::signal::ctrl_c().await;
     }
 }
 
@@ -96,6 +102,7 @@ pub fn blocking_threads(config: &Config) -> usize {
 
 /// Runs the daemon until a stop signal; returns once everything stopped.
 pub async fn serve(config: Config) -> Result<(), DaemonError> {
+    let stop = stop_signal();
     let config = Arc::new(config);
     let dirs = &config.directories;
     for d in [
@@ -197,7 +204,7 @@ pub async fn serve(config: Config) -> Result<(), DaemonError> {
 
     let mut waiting = shutdown.clone();
     tokio::select! {
-        _ = stop_signal() => tracing::info!("stop signal received; stopping"),
+        _ = stop => tracing::info!("stop signal received; stopping"),
         _ = waiting.wait() => {},
     }
     systemd::stopping();
