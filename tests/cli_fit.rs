@@ -250,3 +250,40 @@ fn a_catalogue_bias_table_corrects_the_observations_it_covers() {
     let err = stderr(&out);
     assert!(err.contains("bias.csv:1: field d_dec_arcsec"), "{err}");
 }
+
+/// The outgassing fixture's first two nights: an arc that cannot decide
+/// on non-gravitational terms. The verdict says so (the rule:
+/// fewer than 3 nights) instead of "gravity alone explains the data".
+#[test]
+fn a_two_night_arc_gets_a_verdict_that_holds_back() {
+    let text = std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join(OUTGASSING))
+        .expect("the fixture");
+    // A data row's UTC date, from its obsTime column; None for header and
+    // comment lines, which are kept.
+    let date = |line: &str| {
+        line.split('|')
+            .nth(3)
+            .map(str::trim)
+            .filter(|t| t.len() >= 10 && t.as_bytes()[4] == b'-')
+            .map(|t| t[..10].to_string())
+    };
+    let mut nights: Vec<String> = text.lines().filter_map(date).collect();
+    nights.dedup();
+    assert!(nights.len() > 2, "the fixture has more than two nights");
+    let first_two = &nights[..2];
+    let kept: Vec<&str> = text
+        .lines()
+        .filter(|line| date(line).is_none_or(|d| first_two.contains(&d)))
+        .collect();
+    let dir = tempfile::tempdir().expect("a temporary directory");
+    let file = dir.path().join("two-nights.psv");
+    std::fs::write(&file, kept.join("\n") + "\n").expect("the file is written");
+    let out = perihelix(&["fit", "--no-distant", file.to_str().expect("a UTF-8 path")]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let report = String::from_utf8_lossy(&out.stdout);
+    assert!(report.contains("too short for a verdict"), "{report}");
+    assert!(
+        !report.contains("Gravity alone explains the data"),
+        "{report}"
+    );
+}

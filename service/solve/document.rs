@@ -80,6 +80,9 @@ pub struct SolutionDocument {
     pub law: Option<super::verdicts::LawVerdict>,
     /// Came in bound or not, on the original barycentric 1/a.
     pub bound: Option<super::verdicts::BoundVerdict>,
+    /// Where the verdict holds back (nothing fits, many rejected, an arc
+    /// too short for non-gravitational terms).
+    pub refusals: super::verdicts::Refusals,
     /// Every observation's residual under the recommended model, in the
     /// order the fit saw them (empty when no model is recommended).
     pub residuals: Vec<ResidualDocument>,
@@ -474,6 +477,13 @@ impl SolutionDocument {
             .collect();
         let law = super::verdicts::law_verdict(&models);
         let bound = super::verdicts::bound_verdict(&models, law.as_ref());
+        let nights = solution
+            .observations
+            .iter()
+            .map(|o| o.time.utc().calendar_date())
+            .collect::<std::collections::BTreeSet<_>>()
+            .len();
+        let refusals = super::verdicts::refusals(&models, solution.observations.len(), nights);
         Self {
             object: solution.object.clone(),
             n_obs: solution.observations.len(),
@@ -502,6 +512,7 @@ impl SolutionDocument {
             models,
             law,
             bound,
+            refusals,
             residuals: solution
                 .recommended_fit()
                 .map(|f| residuals(f, &solution.observations))

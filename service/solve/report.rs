@@ -42,6 +42,16 @@ pub fn verdict(doc: &SolutionDocument) -> String {
             "{name} is recommended because an analyst pinned it; by the tests, {tests}."
         );
     }
+    // Refusals come before any claim: never "gravity alone explains the
+    // data" when nothing does, or when the arc cannot tell.
+    if let Some(why) = &doc.refusals.no_model_explains {
+        return why.clone();
+    }
+    if let (Some(why), Some(r)) = (&doc.refusals.arc_too_short, recommended) {
+        if r.terms.is_empty() {
+            return format!("Gravity alone fits. {why}");
+        }
+    }
     match (recommended, significance) {
         (None, Err(reason)) if doc.models.iter().any(|m| m.converged) => format!(
             "No model can be recommended: the comparison with gravity alone could not be made \
@@ -225,6 +235,16 @@ pub fn text(doc: &SolutionDocument) -> String {
         let _ = writeln!(out, "{line}");
     }
     let _ = writeln!(out, "\nVerdict:\n  {}", verdict(doc));
+    let recommended_terms = doc
+        .models
+        .iter()
+        .any(|m| m.recommended && !m.terms.is_empty());
+    if let (Some(w), true) = (&doc.refusals.arc_too_short, recommended_terms) {
+        let _ = writeln!(out, "  {w}");
+    }
+    if let Some(w) = &doc.refusals.many_rejected {
+        let _ = writeln!(out, "  {w}");
+    }
     if let Some(b) = &doc.bound {
         let _ = writeln!(out, "  {}", b.text);
     }

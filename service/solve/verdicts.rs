@@ -15,6 +15,97 @@ pub const BIC_MARGIN: f64 = 6.0;
 /// practice; the alert threshold is configured separately).
 pub const DECIDED_SIGMA: f64 = 3.0;
 
+/// No model explains the data when every converged model's normalised
+/// RMS is above this...
+pub const NO_MODEL_NORMALIZED_RMS: f64 = 1.5;
+/// ...or the best fit's chi^2 tail probability is below this.
+pub const NO_MODEL_P_VALUE: f64 = 1e-6;
+/// More than this share of the observations rejected is worth a warning.
+pub const REJECTED_SHARE_WARNING: f64 = 0.10;
+/// Fewer nights than this cannot decide on non-gravitational terms.
+pub const MIN_NIGHTS_FOR_NG: usize = 3;
+
+/// Where the verdict must hold back, in words: nothing fits, too much was
+/// thrown away, or the arc cannot decide on non-gravitational terms.
+#[derive(Debug, Clone, Default, PartialEq, Serialize)]
+pub struct Refusals {
+    /// No model of the ladder explains the data.
+    pub no_model_explains: Option<String>,
+    /// More than a tenth of the observations rejected.
+    pub many_rejected: Option<String>,
+    /// Too few nights, or no non-gravitational fit converged.
+    pub arc_too_short: Option<String>,
+}
+
+impl Refusals {
+    pub fn is_empty(&self) -> bool {
+        self.no_model_explains.is_none()
+            && self.many_rejected.is_none()
+            && self.arc_too_short.is_none()
+    }
+}
+
+/// The refusals a ladder's models call for; `nights` is how many nights
+/// (UTC dates) the observations span, `observations` how many there are.
+pub fn refusals(models: &[ModelDocument], observations: usize, nights: usize) -> Refusals {
+    let converged: Vec<&ModelDocument> = models.iter().filter(|m| m.converged).collect();
+    let mut out = Refusals::default();
+    let best = converged.iter().filter(|m| m.bic.is_some()).min_by(|a, b| {
+        a.bic
+            .unwrap_or(f64::INFINITY)
+            .total_cmp(&b.bic.unwrap_or(f64::INFINITY))
+    });
+    let best_p = best.and_then(|m| {
+        let (chi2, dof) = (m.chi2?, m.dof?);
+        (dof > 0).then(|| crate::fit::stats::chi2_ln_sf(chi2, dof as f64).exp())
+    });
+    let all_high = !converged.is_empty()
+        && converged.iter().all(|m| {
+            m.normalized_rms
+                .is_some_and(|r| r > NO_MODEL_NORMALIZED_RMS)
+        });
+    if all_high || best_p.is_some_and(|p| p < NO_MODEL_P_VALUE) {
+        let rms = converged
+            .iter()
+            .filter_map(|m| m.normalized_rms)
+            .fold(f64::INFINITY, f64::min);
+        out.no_model_explains = Some(format!(
+            "No model of the ladder explains the data: the smallest normalised RMS is {rms:.2} \
+             (above {NO_MODEL_NORMALIZED_RMS} means the residuals are larger than the stated \
+             uncertainties){}.",
+            best_p.map_or(String::new(), |p| format!(
+                ", and the best fit's chi-square tail probability is {p:.1e}"
+            ))
+        ));
+    }
+    if let Some(r) = models.iter().find(|m| m.recommended && m.converged) {
+        let share = r.rejected.len() as f64 / observations.max(1) as f64;
+        if share > REJECTED_SHARE_WARNING {
+            out.many_rejected = Some(format!(
+                "Warning: {} of {observations} observations ({:.0}%) were rejected as outliers; \
+                 check them before trusting the fit.",
+                r.rejected.len(),
+                100.0 * share
+            ));
+        }
+    }
+    let ng_converged = converged.iter().any(|m| !m.terms.is_empty());
+    if nights < MIN_NIGHTS_FOR_NG {
+        out.arc_too_short = Some(format!(
+            "The arc ({nights} night{}) is too short for a verdict on non-gravitational terms \
+             (at least {MIN_NIGHTS_FOR_NG} nights are needed).",
+            if nights == 1 { "" } else { "s" }
+        ));
+    } else if !ng_converged && !converged.is_empty() {
+        out.arc_too_short = Some(
+            "No non-gravitational model converged: the data cannot yet say whether such terms \
+             are needed."
+                .into(),
+        );
+    }
+    out
+}
+
 /// One law's fit with the recommended terms.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct LawFit {
@@ -345,6 +436,53 @@ mod tests {
         let bound = bound_verdict(&far, Some(&law)).unwrap();
         assert!(!bound.averaged);
         assert_eq!(bound.one_over_a_original_per_au.value, 2.0e-5);
+    }
+
+    /// The limits are the issue's (normalised RMS 1.5, a tenth rejected,
+    /// three nights); the cases are made up around them.
+    #[test]
+    fn the_verdict_holds_back_when_it_must() {
+        let with_rms = |name: &str, terms: &[&str], rms: f64| {
+            let mut m = model(
+                name,
+                terms,
+                Some("water-ice").filter(|_| !terms.is_empty()),
+                100.0,
+                (1e-5, 1e-6),
+            );
+            m.normalized_rms = Some(rms);
+            m
+        };
+        let mut g = with_rms("gravity", &[], 6.8);
+        g.recommended = true;
+        g.rejected = (0..60)
+            .map(|k| crate::solve::document::RejectedDocument {
+                obs_time: format!("2026-01-01T00:{k:02}:00Z"),
+                station: "ZQA".into(),
+                chi2: 50.0,
+            })
+            .collect();
+        let mut a1 = with_rms("A1 water-ice", &["A1"], 6.5);
+        a1.converged = false;
+        let r = refusals(&[g.clone(), a1.clone()], 120, 2);
+        assert!(r.no_model_explains.is_some());
+        assert!(r
+            .many_rejected
+            .as_deref()
+            .is_some_and(|w| w.contains("60 of 120")));
+        assert!(r
+            .arc_too_short
+            .as_deref()
+            .is_some_and(|w| w.contains("2 nights")));
+        // A good fit over enough nights, few rejected: nothing to hold back.
+        g.normalized_rms = Some(0.9);
+        g.rejected.truncate(5);
+        a1.converged = true;
+        a1.normalized_rms = Some(0.9);
+        assert!(refusals(&[g.clone(), a1.clone()], 120, 12).is_empty());
+        // No non-gravitational fit converged: it cannot say.
+        a1.converged = false;
+        assert!(refusals(&[g, a1], 120, 12).arc_too_short.is_some());
     }
 
     #[test]
