@@ -64,6 +64,12 @@ const LOCK_PATIENCE: std::time::Duration = std::time::Duration::from_secs(3);
 
 const META_SCHEMA: &[u8] = b"schema";
 const META_APPLIED: &[u8] = b"applied";
+/// Observations and solutions indexed so far, kept in the transaction of
+/// every entry that adds one: sled can come back from a damaged log with a
+/// page of a tree lost but a later page of `meta` kept, and then the
+/// applied position says "done" for entries it no longer holds. The
+/// counts catch that at open.
+const META_COUNTS: &[u8] = b"counts";
 
 pub struct Index {
     path: PathBuf,
@@ -179,6 +185,7 @@ impl Index {
             linker: Mutex::new(Linker::default()),
         };
         index.check_schema()?;
+        index.check_counts()?;
         index.load_linker()?;
         Ok(index)
     }
@@ -258,12 +265,39 @@ impl Index {
         }
         self.db.drop_tree("residuals")?;
         self.meta.remove(META_APPLIED)?;
+        self.meta.remove(META_COUNTS)?;
         tracing::info!(
             from = found,
             to = SCHEMA_VERSION,
             "index schema is older: it is rebuilt from the journal"
         );
         Ok(())
+    }
+
+    /// Compares what the index holds with what it counted; counts them
+    /// first when an index written before the counts has none.
+    fn check_counts(&self) -> Result<(), StoreError> {
+        let found = (self.obs.len() as u64, self.solutions.len() as u64);
+        match self
+            .meta
+            .get(META_COUNTS)?
+            .as_deref()
+            .and_then(decode_counts)
+        {
+            None => {
+                self.meta.insert(META_COUNTS, &encode_counts(found))?;
+                Ok(())
+            }
+            Some(counted) if counted == found => Ok(()),
+            Some(counted) => Err(StoreError::Index {
+                path: self.path.clone(),
+                why: format!(
+                    "it has lost entries: {} observations and {} solutions counted, {} and {} \
+                     found",
+                    counted.0, counted.1, found.0, found.1
+                ),
+            }),
+        }
     }
 
     fn load_linker(&self) -> Result<(), StoreError> {
@@ -566,6 +600,7 @@ impl Index {
                     k.extend_from_slice(&(i as u32).to_be_bytes());
                     links.insert(k, g.as_slice())?;
                 }
+                count(meta, rows.len() as u64, 0)?;
                 meta.insert(META_APPLIED, applied)?;
                 Ok::<_, ConflictableTransactionError<()>>(())
             });
@@ -646,6 +681,7 @@ impl Index {
                             pending.insert(did.as_bytes(), &[] as &[u8])?;
                         }
                     }
+                    count(meta, 0, 1)?;
                 }
                 meta.insert(META_APPLIED, applied)?;
                 Ok::<_, ConflictableTransactionError<()>>(())
@@ -901,6 +937,40 @@ impl Index {
     pub fn counts(&self) -> (usize, usize, usize) {
         (self.objects.len(), self.obs.len(), self.solutions.len())
     }
+}
+
+fn encode_counts(c: (u64, u64)) -> [u8; 16] {
+    let mut b = [0u8; 16];
+    b[..8].copy_from_slice(&c.0.to_be_bytes());
+    b[8..].copy_from_slice(&c.1.to_be_bytes());
+    b
+}
+
+fn decode_counts(b: &[u8]) -> Option<(u64, u64)> {
+    let obs = u64::from_be_bytes(b.get(..8)?.try_into().ok()?);
+    let solutions = u64::from_be_bytes(b.get(8..16)?.try_into().ok()?);
+    (b.len() == 16).then_some((obs, solutions))
+}
+
+/// Adds to the counts inside an entry's transaction.
+fn count(
+    meta: &sled::transaction::TransactionalTree,
+    observations: u64,
+    solutions: u64,
+) -> Result<(), ConflictableTransactionError<()>> {
+    if observations == 0 && solutions == 0 {
+        return Ok(());
+    }
+    let (o, s) = meta
+        .get(META_COUNTS)?
+        .as_deref()
+        .and_then(decode_counts)
+        .unwrap_or((0, 0));
+    meta.insert(
+        META_COUNTS,
+        &encode_counts((o + observations, s + solutions)),
+    )?;
+    Ok(())
 }
 
 fn span_value(v: &[u8]) -> Result<Span, StoreError> {

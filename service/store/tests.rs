@@ -375,3 +375,44 @@ fn a_refit_asked_for_keeps_the_object_due_until_a_fit_saw_it() {
         .unwrap();
     assert_eq!(store.object(&id).unwrap().unwrap().due(), None);
 }
+
+/// An index that lost entries its applied position says it holds (what a
+/// damaged sled log can leave) is refused with the remedy, and a rebuild
+/// from the journal brings everything back.
+#[test]
+fn an_index_that_lost_entries_is_refused_and_rebuilt() {
+    let dir = tempfile::tempdir().unwrap();
+    let counts = {
+        let store = SledStore::open(dir.path()).unwrap();
+        store
+            .add_observations(origin("a.psv"), fixture_entries())
+            .unwrap();
+        let id = store.objects().unwrap()[0].id.clone();
+        store
+            .add_solution(record(&id, 1, store.journal_seq()))
+            .unwrap();
+        store.flush().unwrap();
+        store.counts()
+    };
+    {
+        // Three observations gone from the index, the rest as it was.
+        let db = sled::open(index_dir(dir.path())).unwrap();
+        let obs = db.open_tree("obs").unwrap();
+        let lost: Vec<_> = obs.iter().keys().take(3).map(|k| k.unwrap()).collect();
+        for k in lost {
+            obs.remove(k).unwrap();
+        }
+        db.flush().unwrap();
+    }
+    match SledStore::open(dir.path()) {
+        Err(e @ StoreError::Index { .. }) => {
+            let text = e.to_string();
+            assert!(text.contains("lost entries"), "{text}");
+            assert!(text.contains("perihelix rebuild"), "{text}");
+        }
+        Err(e) => panic!("unexpected error {e}"),
+        Ok(_) => panic!("an index missing entries was opened"),
+    }
+    let (store, _) = SledStore::rebuild(dir.path()).unwrap();
+    assert_eq!(store.counts(), counts);
+}
