@@ -14,7 +14,7 @@ use crate::astro::time::UtcTime;
 
 use super::auth::require_token;
 use super::error::ApiError;
-use super::routes::{blocking, find_object, from_hex, page_limit, to_hex, ApiState};
+use super::routes::{blocking, find_object, from_hex, optional_json, page_limit, to_hex, ApiState};
 
 pub const ALERT_QUERY: &[(&str, &str)] = &[
     ("object", "only this object's (internal id or any designation)"),
@@ -123,15 +123,7 @@ pub async fn acknowledge(
     body: Bytes,
 ) -> Result<Response, ApiError> {
     require_token(s.0.token.as_deref(), &headers)?;
-    let by = if body.iter().all(u8::is_ascii_whitespace) {
-        "api".to_string()
-    } else {
-        serde_json::from_slice::<AckBody>(&body)
-            .map_err(|e| {
-                ApiError::bad_request("bad_ack", format!("{e}; the body is empty or JSON with by"))
-            })?
-            .by
-    };
+    let by = optional_json(&body, || AckBody { by: "api".into() }, "bad_ack", "by")?.by;
     if by.trim().is_empty() || by.len() > 200 {
         return Err(ApiError::bad_request(
             "bad_ack",

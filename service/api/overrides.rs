@@ -18,7 +18,7 @@ use crate::store::{OverrideAction, OverrideRecord, Trigger};
 
 use super::auth::require_token;
 use super::error::ApiError;
-use super::routes::{find_object, ApiState};
+use super::routes::{blocking, find_object, optional_json, ApiState};
 
 /// Longest `by` and `reason` kept.
 const MAX_TEXT: usize = 1000;
@@ -84,12 +84,7 @@ pub async fn post_override(
         | OverrideAction::ClearObservation { content_key } => {
             let key = crate::store::content_key_bytes(content_key)
                 .map_err(|why| ApiError::bad_request("bad_override", why))?;
-            let store = s.0.store.clone();
-            let known = tokio::task::spawn_blocking(move || store.has_observation(&key))
-                .await
-                .map_err(|e| {
-                    ApiError::new(StatusCode::INTERNAL_SERVER_ERROR, "internal", e.to_string())
-                })??;
+            let known = blocking(&s, move |store| store.has_observation(&key)).await?;
             if !known {
                 return Err(ApiError::not_found(format!(
                     "no observation with content key {content_key} (see .../observations)"
@@ -159,19 +154,15 @@ pub async fn post_refit(
         by: String,
         reason: String,
     }
-    let asked = if body.iter().all(u8::is_ascii_whitespace) {
-        Asked {
+    let asked = optional_json(
+        &body,
+        || Asked {
             by: "api".into(),
             reason: "a refit asked for over the API".into(),
-        }
-    } else {
-        serde_json::from_slice::<Asked>(&body).map_err(|e| {
-            ApiError::bad_request(
-                "bad_refit",
-                format!("{e}; the body is empty or JSON with by and reason"),
-            )
-        })?
-    };
+        },
+        "bad_refit",
+        "by and reason",
+    )?;
     check_text("by", &asked.by)?;
     check_text("reason", &asked.reason)?;
     let object = find_object(&s, id).await?;
@@ -225,13 +216,8 @@ pub async fn list_overrides(
     Path(id): Path<String>,
 ) -> Result<Json<serde_json::Value>, ApiError> {
     let object = find_object(&s, id).await?;
-    let store = s.0.store.clone();
     let oid = object.id.clone();
-    let list = tokio::task::spawn_blocking(move || store.overrides(&oid))
-        .await
-        .map_err(|e| {
-            ApiError::new(StatusCode::INTERNAL_SERVER_ERROR, "internal", e.to_string())
-        })??;
+    let list = blocking(&s, move |store| store.overrides(&oid)).await?;
     Ok(Json(
         serde_json::json!({ "object_id": object.id, "overrides": list }),
     ))

@@ -520,6 +520,25 @@ struct ObservationPage {
     next_cursor: Option<String>,
 }
 
+/// A request body that may be left empty: `default` then, else the JSON
+/// it holds, refused with `code` and what the body may be.
+pub(super) fn optional_json<T: serde::de::DeserializeOwned>(
+    body: &[u8],
+    default: impl FnOnce() -> T,
+    code: &'static str,
+    may_be: &str,
+) -> Result<T, ApiError> {
+    if body.iter().all(u8::is_ascii_whitespace) {
+        return Ok(default());
+    }
+    serde_json::from_slice(body).map_err(|e| {
+        ApiError::bad_request(
+            code,
+            format!("{e}; the body is empty or JSON with {may_be}"),
+        )
+    })
+}
+
 pub(super) fn to_hex(b: &[u8]) -> String {
     b.iter().map(|x| format!("{x:02x}")).collect()
 }

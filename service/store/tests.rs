@@ -46,6 +46,20 @@ fn record(id: &str, seq: u64, inputs: u64) -> SolutionRecord {
     }
 }
 
+/// A store under `path` with the fixture's observations and one solution;
+/// the object's id.
+fn with_one_solution(path: &Path) -> (SledStore, String) {
+    let store = SledStore::open(path).unwrap();
+    store
+        .add_observations(origin("a.psv"), fixture_entries())
+        .unwrap();
+    let id = store.objects().unwrap()[0].id.clone();
+    store
+        .add_solution(record(&id, 1, store.journal_seq()))
+        .unwrap();
+    (store, id)
+}
+
 #[test]
 fn observations_are_stored_once_and_found_by_designation() {
     let dir = tempfile::tempdir().unwrap();
@@ -300,14 +314,7 @@ fn documents_are_read_from_the_journal_and_residuals_apart() {
 fn an_older_index_is_rebuilt_from_the_journal() {
     let dir = tempfile::tempdir().unwrap();
     let (id, counts) = {
-        let store = SledStore::open(dir.path()).unwrap();
-        store
-            .add_observations(origin("a.psv"), fixture_entries())
-            .unwrap();
-        let id = store.objects().unwrap()[0].id.clone();
-        store
-            .add_solution(record(&id, 1, store.journal_seq()))
-            .unwrap();
+        let (store, id) = with_one_solution(dir.path());
         store.flush().unwrap();
         (id, store.counts())
     };
@@ -340,14 +347,7 @@ fn an_older_index_is_rebuilt_from_the_journal() {
 fn a_refit_asked_for_keeps_the_object_due_until_a_fit_saw_it() {
     let dir = tempfile::tempdir().unwrap();
     let id = {
-        let store = SledStore::open(dir.path()).unwrap();
-        store
-            .add_observations(origin("a.psv"), fixture_entries())
-            .unwrap();
-        let id = store.objects().unwrap()[0].id.clone();
-        store
-            .add_solution(record(&id, 1, store.journal_seq()))
-            .unwrap();
+        let (store, id) = with_one_solution(dir.path());
         assert_eq!(store.object(&id).unwrap().unwrap().due(), None);
         store
             .add_override(OverrideRecord {
@@ -383,14 +383,7 @@ fn a_refit_asked_for_keeps_the_object_due_until_a_fit_saw_it() {
 fn an_index_that_lost_entries_is_refused_and_rebuilt() {
     let dir = tempfile::tempdir().unwrap();
     let counts = {
-        let store = SledStore::open(dir.path()).unwrap();
-        store
-            .add_observations(origin("a.psv"), fixture_entries())
-            .unwrap();
-        let id = store.objects().unwrap()[0].id.clone();
-        store
-            .add_solution(record(&id, 1, store.journal_seq()))
-            .unwrap();
+        let (store, _) = with_one_solution(dir.path());
         store.flush().unwrap();
         store.counts()
     };
