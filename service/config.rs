@@ -17,7 +17,7 @@ use crate::astro::time::{LeapSecondTable, TimeError};
 use crate::ingest::DesignationKey;
 use reader::{Source, TableReader};
 use stations::{in_range, positive};
-pub use stations::{load_stations, parse_stations, Station, StationList};
+pub use stations::{load_stations, parse_stations, shipped_stations, Station, StationList};
 
 /// One thing wrong with a configuration file.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize)]
@@ -435,17 +435,29 @@ fn read_config(top: &TableReader<'_, '_>, extra: &mut Vec<ConfigProblem>) -> Opt
     let (stations_file, stations) = match top.table("stations") {
         Some(t) => {
             let file = t.path("file", true);
-            t.finish();
-            match file {
-                Some(f) => match load_stations(&f) {
-                    Ok(list) => (Some(f), Some(list)),
-                    Err(p) => {
-                        extra.extend(p);
+            let read = match file {
+                // An unreadable list is reported at the key that names it,
+                // with the path as resolved, so the reader knows what to fix.
+                Some(f) => match std::fs::read_to_string(&f) {
+                    Err(e) => {
+                        t.problem(
+                            "file",
+                            format!("cannot read the station list {}: {e}", f.display()),
+                        );
                         (Some(f), None)
                     }
+                    Ok(text) => match parse_stations(&f, &text) {
+                        Ok(list) => (Some(f), Some(list)),
+                        Err(p) => {
+                            extra.extend(p);
+                            (Some(f), None)
+                        }
+                    },
                 },
                 None => (None, None),
-            }
+            };
+            t.finish();
+            read
         }
         None => (None, Some(StationList::default())),
     };

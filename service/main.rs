@@ -3,16 +3,14 @@
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
-use anyhow::Result;
+use anyhow::{Context, Result};
 use clap::{Parser, Subcommand};
 
 use perihelix::astro::time::{Epoch, UtcTime};
-use perihelix::config::{load_stations, Config, ConfigError, StationList};
-use perihelix::fit::predict::{
-    predict_places, EllipseMethod, PredictSettings, PredictionPoint, MIN_SAMPLES,
-};
+use perihelix::config::{parse_stations, shipped_stations, Config, ConfigError, StationList};
+use perihelix::fit::predict::{EllipseMethod, PredictSettings, PredictionPoint, MIN_SAMPLES};
 use perihelix::ingest::{DesignationKey, ObjectObservations};
-use perihelix::solve::prediction::{utc_grid, GridError, PredictionDocument};
+use perihelix::solve::prediction::{predict_with_average, utc_grid, GridError, PredictionDocument};
 
 /// Keeps a small body's orbit right while observations keep coming in.
 ///
@@ -43,17 +41,21 @@ enum Command {
         /// Observation files (.psv, .xml, .jsonl).
         #[arg(required = true)]
         files: Vec<PathBuf>,
+        /// Configuration file for the fit settings and the station list
+        /// (see config/example.toml; default: the embedded defaults).
         #[arg(long, short)]
         config: Option<PathBuf>,
-        /// Station list, overriding the configuration's.
+        /// Station list file, replacing the configuration's (default: the
+        /// configuration's, else the built-in config/stations.toml).
         #[arg(long)]
         stations: Option<PathBuf>,
         /// Print one JSON document instead of the report.
         #[arg(long)]
         json: bool,
         /// Report the elements at this epoch: a Julian date (TDB) such as
-        /// 2461000.5, or an ISO 8601 UTC time (default: the fit epoch, a
-        /// whole TDB day near the middle of the arc).
+        /// 2461000.5, or an ISO 8601 UTC time or date alone (00:00 UTC)
+        /// (default: the fit epoch, a whole TDB day near the middle of the
+        /// arc).
         #[arg(long)]
         epoch: Option<String>,
         /// The object to fit when the files hold several (a designation
@@ -74,25 +76,30 @@ enum Command {
         /// The observing station's code (from the station list).
         #[arg(long)]
         station: String,
-        /// First time (ISO 8601 UTC).
+        /// First time: ISO 8601 UTC (2026-09-01T06:00:00Z), or a date
+        /// alone (2026-09-01, meaning 00:00 UTC).
         #[arg(long)]
         from: String,
-        /// Last time (ISO 8601 UTC).
+        /// Last time, in the same forms as --from.
         #[arg(long)]
         to: String,
         /// Step in days.
         #[arg(long, allow_negative_numbers = true)]
         step: f64,
+        /// Configuration file for the fit settings and the station list
+        /// (see config/example.toml; default: the embedded defaults).
         #[arg(long, short)]
         config: Option<PathBuf>,
-        /// Station list, overriding the configuration's.
+        /// Station list file, replacing the configuration's (default: the
+        /// configuration's, else the built-in config/stations.toml).
         #[arg(long)]
         stations: Option<PathBuf>,
         /// The object when the files hold several.
         #[arg(long)]
         object: Option<String>,
         /// The ladder model to predict from, by its name in the fit report
-        /// (e.g. "gravity", "A1 water-ice"); default the recommended one.
+        /// (e.g. "gravity", "A1 water-ice"; checked before the fit);
+        /// default the recommended one.
         #[arg(long)]
         model: Option<String>,
         /// Make the uncertainty ellipse from this many samples of the
@@ -107,22 +114,65 @@ enum Command {
         #[arg(long)]
         json: bool,
     },
-    /// Read, validate and summarise observation files without a daemon.
-    Ingest {
+    /// Rank the nights and stations where one night's observations would
+    /// best tell the recommended model from its strongest rival (fitted
+    /// from the files first, as `fit` does).
+    Plan {
+        /// Observation files (.psv, .xml, .jsonl).
         #[arg(required = true)]
         files: Vec<PathBuf>,
+        /// First night's start: ISO 8601 UTC, or a date alone (00:00 UTC).
+        #[arg(long)]
+        from: String,
+        /// Last night's end, in the same forms as --from.
+        #[arg(long)]
+        to: String,
+        /// Stations to plan for (repeat the option; default: the stations
+        /// that observed the object).
+        #[arg(long = "station", value_name = "CODE")]
+        stations_wanted: Vec<String>,
+        /// The rival model to tell the recommended one from, by its name in
+        /// the fit report (default: the other converged model with the
+        /// lowest BIC).
+        #[arg(long)]
+        rival: Option<String>,
+        /// Configuration file for the fit settings and the station list
+        /// (see config/example.toml; default: the embedded defaults).
         #[arg(long, short)]
         config: Option<PathBuf>,
-        /// Station list, overriding the configuration's (default:
-        /// config/stations.toml when no configuration is given).
+        /// Station list file, replacing the configuration's (default: the
+        /// configuration's, else the built-in config/stations.toml).
         #[arg(long)]
         stations: Option<PathBuf>,
+        /// The object when the files hold several.
+        #[arg(long)]
+        object: Option<String>,
+        /// Print one JSON document instead of the table.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Read, validate and summarise observation files without a daemon.
+    Ingest {
+        /// Observation files (.psv, .xml, .jsonl).
+        #[arg(required = true)]
+        files: Vec<PathBuf>,
+        /// Configuration file for the station list and designation links
+        /// (see config/example.toml; default: the embedded defaults).
+        #[arg(long, short)]
+        config: Option<PathBuf>,
+        /// Station list file, replacing the configuration's (default: the
+        /// configuration's, else the built-in config/stations.toml).
+        #[arg(long)]
+        stations: Option<PathBuf>,
+        /// Print the summary as one JSON document, every rejected line in
+        /// it (the text groups lines rejected for the same reason).
         #[arg(long)]
         json: bool,
     },
     /// Rebuild the store's index from its journal (after the index was
     /// lost or damaged); the old index is moved aside, never deleted.
     Rebuild {
+        /// The daemon's configuration file, which names the store.
         #[arg(long, short, default_value = "/etc/perihelix/config.toml")]
         config: PathBuf,
     },
@@ -131,12 +181,15 @@ enum Command {
     History {
         /// Object designation or internal id.
         object: String,
+        /// The daemon's configuration file (its API address and store).
         #[arg(long, short, default_value = "/etc/perihelix/config.toml")]
         config: PathBuf,
+        /// Print one JSON document instead of the table.
         #[arg(long)]
         json: bool,
     },
-    /// Run the whole job on embedded defaults with an invented scenario.
+    /// Run the whole job on embedded defaults with an invented scenario
+    /// (not available yet).
     Demo {
         /// Where to put the demo's data (default: a new temporary directory).
         #[arg(long)]
@@ -145,6 +198,7 @@ enum Command {
     /// Send one test message on every configured alert channel (e-mail,
     /// webhook) and report each result.
     AlertTest {
+        /// The daemon's configuration file, which names the channels.
         #[arg(long, short, default_value = "/etc/perihelix/config.toml")]
         config: PathBuf,
     },
@@ -241,6 +295,29 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 json,
             },
         ),
+        Command::Plan {
+            files,
+            from,
+            to,
+            stations_wanted,
+            rival,
+            config,
+            stations,
+            object,
+            json,
+        } => plan(
+            &files,
+            config.as_deref(),
+            stations.as_deref(),
+            &PlanOptions {
+                from,
+                to,
+                stations: stations_wanted,
+                rival,
+                object,
+                json,
+            },
+        ),
         Command::Demo { .. } => not_yet("demo", "the daemon"),
     }
 }
@@ -334,28 +411,38 @@ fn history(object: &str, config: &Path, json: bool) -> Result<ExitCode> {
 
 /// The configuration (if given, else the embedded defaults) with its
 /// station list replaced by `stations` (if given), or by the shipped station
-/// list when neither names one.
+/// list, compiled in, when neither names one: the batch commands then work
+/// the same from any working directory.
 fn configuration(config: Option<&Path>, stations: Option<&Path>) -> Result<Config> {
     let (cfg, explicit) = match config {
         Some(path) => (Config::load(path)?, true),
         None => (Config::embedded_default(Path::new(".")), false),
     };
     let list = match (stations, explicit) {
-        (Some(path), _) => load_stations(path).map_err(|problems| ConfigError { problems })?,
+        (Some(path), _) => station_file(path)?,
         (None, true) => cfg.stations.clone(),
-        (None, false) => {
-            let shipped = Path::new("config/stations.toml");
-            if shipped.is_file() {
-                load_stations(shipped).map_err(|problems| ConfigError { problems })?
-            } else {
-                StationList::default()
-            }
-        }
+        (None, false) => shipped_stations()
+            .map_err(|problems| ConfigError { problems })
+            .context("the built-in station list")?,
     };
     Ok(Config {
         stations: list,
         ..cfg
     })
+}
+
+/// The station list named by `--stations`; its errors say which option
+/// named the path, so the user knows what to change.
+fn station_file(path: &Path) -> Result<StationList> {
+    let text = std::fs::read_to_string(path).map_err(|e| {
+        anyhow::anyhow!(
+            "--stations {}: cannot read the station list: {e}",
+            path.display()
+        )
+    })?;
+    parse_stations(path, &text)
+        .map_err(|problems| ConfigError { problems })
+        .with_context(|| format!("--stations {}", path.display()))
 }
 
 /// Stations and links from [`configuration`].
@@ -451,6 +538,22 @@ fn fit(
     Ok(ExitCode::SUCCESS)
 }
 
+/// `--model`, checked against the configured ladder's model names before
+/// the fit, which takes seconds; whether the model converged is known only
+/// after it.
+fn check_model(cfg: &Config, model: Option<&str>) -> Result<()> {
+    let Some(wanted) = model else {
+        return Ok(());
+    };
+    let names = perihelix::solve::settings::ladder_model_names(&cfg.fit);
+    anyhow::ensure!(
+        names.iter().any(|n| n == wanted),
+        "--model {wanted:?}: no such model; the ladder has: {}",
+        names.join(", ")
+    );
+    Ok(())
+}
+
 /// How `predict` runs and reports, beyond the files and configuration.
 struct PredictOptions {
     station: String,
@@ -478,6 +581,7 @@ fn predict(
             "--monte-carlo {samples}: at least {MIN_SAMPLES} samples are needed for a sample covariance"
         );
     }
+    check_model(&cfg, options.model.as_deref())?;
     let observer = perihelix::solve::input::station_position(&cfg.stations, &options.station)
         .map_err(|e| {
             let known: Vec<&str> = cfg.stations.iter().map(|s| s.code.as_str()).collect();
@@ -492,7 +596,7 @@ fn predict(
             )
         })?;
     let parse = |option: &str, text: &str| {
-        UtcTime::parse_iso8601(text).map_err(|e| anyhow::anyhow!("{option} {text}: {e}"))
+        UtcTime::parse_iso8601_or_date(text).map_err(|e| anyhow::anyhow!("{option} {text}: {e}"))
     };
     let from = parse("--from", &options.from)?;
     let to = parse("--to", &options.to)?;
@@ -534,9 +638,14 @@ fn predict(
                 )
             })?,
     };
-    let fit = chosen.converged_fit().ok_or_else(|| {
-        anyhow::anyhow!("--model {:?}: that model did not converge", chosen.name())
-    })?;
+    if chosen.converged_fit().is_none() {
+        anyhow::bail!("--model {:?}: that model did not converge", chosen.name());
+    }
+    let candidates: Vec<(String, Option<f64>, &perihelix::fit::lsq::OrbitFit)> = ladder
+        .models
+        .iter()
+        .filter_map(|m| Some((m.name(), m.bic, m.converged_fit()?)))
+        .collect();
     let points: Vec<PredictionPoint> = times
         .into_iter()
         .map(|time| PredictionPoint { time, observer })
@@ -550,14 +659,19 @@ fn predict(
         magnitude: solved.brightness.as_ref().and_then(|b| b.law),
         ..PredictSettings::default()
     };
-    let places = predict_places(solved.ephemeris.as_ref(), fit, &points, &settings)?;
+    let predicted = predict_with_average(
+        solved.ephemeris.as_ref(),
+        &candidates,
+        &chosen.name(),
+        &points,
+        &settings,
+    )?;
     let doc = PredictionDocument::new(
         &name,
-        &chosen.name(),
+        &predicted,
         options.method,
         &solved.ephemeris.describe(),
         &options.station,
-        &places,
     );
     if options.json {
         println!("{}", serde_json::to_string_pretty(&doc)?);
@@ -567,16 +681,90 @@ fn predict(
     Ok(ExitCode::SUCCESS)
 }
 
-/// Reads the files (reporting rejected lines on stderr, never fatal) and
-/// picks the object to fit, with the name it is reported under.
+/// How `plan` runs and reports, beyond the files and configuration.
+struct PlanOptions {
+    from: String,
+    to: String,
+    stations: Vec<String>,
+    rival: Option<String>,
+    object: Option<String>,
+    json: bool,
+}
+
+fn plan(
+    files: &[PathBuf],
+    config: Option<&Path>,
+    stations: Option<&Path>,
+    options: &PlanOptions,
+) -> Result<ExitCode> {
+    let cfg = configuration(config, stations)?;
+    // Everything the request can get wrong is checked before the fit.
+    if let Some(rival) = options.rival.as_deref() {
+        let names = perihelix::solve::settings::ladder_model_names(&cfg.fit);
+        anyhow::ensure!(
+            names.iter().any(|n| n == rival),
+            "--rival {rival:?}: no such model; the ladder has: {}",
+            names.join(", ")
+        );
+    }
+    let parse = |option: &str, text: &str| {
+        UtcTime::parse_iso8601_or_date(text).map_err(|e| anyhow::anyhow!("{option} {text}: {e}"))
+    };
+    let from = parse("--from", &options.from)?;
+    let to = parse("--to", &options.to)?;
+    for code in &options.stations {
+        perihelix::solve::input::station_position(&cfg.stations, code)
+            .map_err(|e| anyhow::anyhow!("--station {code}: {e}"))?;
+    }
+    let (name, object) = read_object(files, &cfg, options.object.as_deref())?;
+    let context = perihelix::solve::SolveContext::new(&cfg)?;
+    let solved = perihelix::solve::solve_records_in(
+        &context,
+        &cfg,
+        &name,
+        &object.observations,
+        &perihelix::solve::SolveRequest::default(),
+    )?;
+    // The plan reads the solution as the daemon stores it: one path.
+    let document =
+        serde_json::to_value(perihelix::solve::document::SolutionDocument::new(&solved))?;
+    let plan = perihelix::solve::plan::plan_stored(
+        context.ephemeris.as_ref(),
+        &context.scales,
+        &context.settings,
+        &cfg.stations,
+        Some(&document),
+        &options.stations,
+        options.rival.as_deref(),
+        &from,
+        &to,
+    )?;
+    if options.json {
+        let mut value = serde_json::to_value(&plan)?;
+        if let Some(o) = value.as_object_mut() {
+            o.insert("object".into(), name.into());
+        }
+        println!("{}", serde_json::to_string_pretty(&value)?);
+    } else {
+        println!("{name}");
+        print!("{}", plan.text());
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+/// Reads the files (reporting rejected lines on stderr, one line per
+/// reason, never fatal) and picks the object to fit, with the name it is
+/// reported under.
 fn read_object(
     files: &[PathBuf],
     cfg: &Config,
     wanted: Option<&str>,
 ) -> Result<(String, ObjectObservations)> {
     let outcome = perihelix::ingest::ingest_files(files, &cfg.stations, &cfg.links);
-    for r in &outcome.summary.rejected {
-        eprintln!("rejected: {r}");
+    let rejected = &outcome.summary.rejected;
+    for group in perihelix::ingest::group_rejections(rejected, perihelix::ingest::GROUP_LINES_SHOWN)
+    {
+        eprintln!("rejected: {group}");
     }
     let object = pick_object(&outcome.objects, wanted)?.clone();
     let name = perihelix::ingest::DesignationKey::best_name(&object.designations)
@@ -618,7 +806,8 @@ fn pick_object<'a>(
     }
 }
 
-/// `--epoch`: a Julian date on the TDB scale, or an ISO 8601 UTC time.
+/// `--epoch`: a Julian date on the TDB scale, or an ISO 8601 UTC time or
+/// date (00:00 UTC).
 fn parse_epoch(text: &str, cfg: &Config) -> Result<Epoch> {
     if let Ok(jd) = text.trim().parse::<f64>() {
         anyhow::ensure!(
@@ -629,7 +818,7 @@ fn parse_epoch(text: &str, cfg: &Config) -> Result<Epoch> {
         let day = jd.floor();
         return Ok(Epoch::from_tdb_jd(day, jd - day));
     }
-    let utc = UtcTime::parse_iso8601(text)
+    let utc = UtcTime::parse_iso8601_or_date(text)
         .map_err(|e| anyhow::anyhow!("--epoch {text}: neither a Julian date nor {e}"))?;
     Ok(perihelix::solve::time_scales(cfg)?
         .resolve_utc(&utc, None)?

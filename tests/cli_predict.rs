@@ -133,6 +133,18 @@ fn monte_carlo_with_a_named_model_and_a_table() {
             assert!(o.as_f64().unwrap().abs() < 5.0 * a / 60f64.sqrt(), "{e}");
         }
     }
+    // The model average beside the chosen model, by the same method; its
+    // weights are normalised (exp(-dBIC/2) over the members, issue 12).
+    let averaged = &doc["averaged"];
+    let members = averaged["members"].as_array().expect("members");
+    let total: f64 = members.iter().map(|m| number(m, &["weight"])).sum();
+    assert!((total - 1.0).abs() < 1e-12, "{averaged}");
+    let entries = averaged["entries"].as_array().expect("averaged entries");
+    assert_eq!(entries.len(), doc["entries"].as_array().unwrap().len());
+    for e in entries {
+        assert_eq!(e["ellipse"]["method"], "monte-carlo");
+        assert!(number(e, &["between_models_arcsec"]) >= 0.0);
+    }
 
     let out = perihelix(&[
         "--station",
@@ -149,12 +161,24 @@ fn monte_carlo_with_a_named_model_and_a_table() {
     assert!(text.contains("station ZQB"), "{text}");
     assert!(text.contains("1 sigma, linear covariance map"), "{text}");
     assert!(text.contains("2026-09-01T06:00:00.000Z"), "{text}");
+    // Three times, in the model's table and again averaged over the models.
     assert_eq!(
         text.lines()
             .filter(|l| l.starts_with("2026-09-01T"))
             .count(),
-        3
+        6
     );
+    assert!(text.contains("Averaged over the models"), "{text}");
+    for heading in [
+        "from obs.",
+        "from Sun",
+        "elongation",
+        "phase",
+        "PA (deg)",
+        "(\"/min)",
+    ] {
+        assert!(text.contains(heading), "{heading}: {text}");
+    }
 }
 
 /// The error (exit status 1) names the option and the reason.
@@ -200,7 +224,9 @@ fn bad_requests_name_the_option() {
         &day(a, "2027-09-02T00:00:00Z", "0.01"),
         "is 36601 times; at most 10000 are allowed",
     );
-    refused(&day("2026-09-01", b, "1"), "--from 2026-09-01:");
+    // A date alone is a time (issue 12, point 7), but it must exist:
+    // September has 30 days.
+    refused(&day("2026-09-31", b, "1"), "--from 2026-09-31:");
     let mut few = day(a, b, "1");
     few.extend(["--monte-carlo", "3"]);
     refused(&few, "--monte-carlo 3: at least 10 samples");

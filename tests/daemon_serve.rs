@@ -229,6 +229,97 @@ fn nights_arrive_and_each_quiet_period_gives_one_solution() {
         );
         assert!((u - v).abs() <= 1e-6 * v, "ellipse {u} vs {v}");
     }
+    // The model average beside them: the same from the store and from the
+    // command; the weights sum to 1 (normalisation, issue 12 point 2).
+    let (a, b) = (&p["averaged"], &batch["averaged"]);
+    let weights: f64 = a["members"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|m| m["weight"].as_f64().unwrap())
+        .sum();
+    assert!((weights - 1.0).abs() < 1e-12, "weights sum to {weights}");
+    assert_eq!(
+        a["members"].as_array().unwrap().len(),
+        b["members"].as_array().unwrap().len()
+    );
+    for (x, y) in a["entries"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .zip(b["entries"].as_array().unwrap())
+    {
+        for key in ["ra_deg", "dec_deg"] {
+            let (u, v) = (x[key].as_f64().unwrap(), y[key].as_f64().unwrap());
+            assert!((u - v).abs() < 1e-9, "averaged {key}: {u} vs {v}");
+        }
+    }
+
+    // The plan stored with the solution: the recommended model against a
+    // rival, nights ranked by separation; and a plan for a window, from
+    // the store and from the command, alike.
+    let object = common::daemon::encode(OBJECT);
+    let (status, stored_plan) = d.get(&format!("/v1/objects/{object}/plan"));
+    assert_eq!(status, 200, "{stored_plan}");
+    assert_eq!(stored_plan["stored"], true);
+    assert_eq!(stored_plan["model"], stored["recommended"]);
+    assert_ne!(stored_plan["rival"], stored_plan["model"]);
+    let ranked: Vec<f64> = stored_plan["nights"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|n| n["separation_sigma"].as_f64().unwrap())
+        .collect();
+    assert!(ranked.windows(2).all(|w| w[0] >= w[1]), "{ranked:?}");
+    let window = ["2026-09-01", "2026-09-15"];
+    let (status, api_plan) = d.get(&format!(
+        "/v1/objects/{object}/plan?from={}&to={}",
+        window[0], window[1]
+    ));
+    assert_eq!(status, 200, "{api_plan}");
+    assert_eq!(api_plan["stored"], false);
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_perihelix"))
+        .args([
+            "plan", "--json", "--from", window[0], "--to", window[1], "--config",
+        ])
+        .arg(&dir.config)
+        .arg(repo().join(FIXTURE))
+        .output()
+        .expect("the plan command runs");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let cli_plan: Value = serde_json::from_slice(&out.stdout).expect("plan --json prints JSON");
+    assert_eq!(api_plan["rival"], cli_plan["rival"]);
+    let (a, b) = (
+        api_plan["nights"].as_array().unwrap(),
+        cli_plan["nights"].as_array().unwrap(),
+    );
+    assert!(!a.is_empty());
+    assert_eq!(a.len(), b.len());
+    // Keyed by station and night: nights of nearly equal rank may swap.
+    let by_night = |nights: &[Value]| -> std::collections::BTreeMap<(String, String), f64> {
+        nights
+            .iter()
+            .map(|n| {
+                (
+                    (n["station"].to_string(), n["night"].to_string()),
+                    n["separation_sigma"].as_f64().unwrap(),
+                )
+            })
+            .collect()
+    };
+    let (x, y) = (by_night(a), by_night(b));
+    assert_eq!(x.keys().collect::<Vec<_>>(), y.keys().collect::<Vec<_>>());
+    for (key, u) in &x {
+        let v = y[key];
+        assert!(
+            (u - v).abs() <= 1e-6 * v.max(1e-3),
+            "{key:?}: separation {u} vs {v}"
+        );
+    }
     let status = d.stop(Duration::from_secs(30));
     assert!(status.success(), "exit status {status}");
 }

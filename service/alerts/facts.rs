@@ -13,8 +13,13 @@ use serde_json::Value;
 
 use crate::astro::time::UtcTime;
 use crate::config::StationList;
-use crate::fit::predict::{predict_places, PlacePrediction, PredictSettings, PredictionPoint};
+use nalgebra::Vector2;
+
+use crate::fit::mixture::AveragedPlace;
+use crate::fit::observe::{wrap_pi, ARCSEC_PER_RAD};
+use crate::fit::predict::{predict_places, PredictSettings, PredictionPoint};
 use crate::solve::document::{SolutionDocument, ValueSigma};
+use crate::solve::prediction::predict_stored;
 use crate::solve::stored::model_fit;
 use crate::solve::SolveContext;
 
@@ -42,8 +47,12 @@ pub struct PlaceFacts {
     pub station: String,
     pub ra_deg: f64,
     pub dec_deg: f64,
-    /// Semi-major axis of the recommended model's 1-sigma ellipse.
+    /// The place and ellipse are averaged over the ladder's models
+    /// (weights exp(-dBIC/2)), so a law the data cannot choose widens
+    /// them. Semi-major axis of that 1-sigma ellipse:
     pub sigma_arcsec: f64,
+    /// The same from the recommended model alone.
+    pub recommended_sigma_arcsec: f64,
     /// The same from gravity alone, when that model converged.
     pub gravity_sigma_arcsec: Option<f64>,
     /// How far the previous solution's prediction for the same instant
@@ -300,33 +309,59 @@ fn try_places(
         })
         .collect::<Result<Vec<_>, String>>()?;
     let settings = &ctx.settings;
-    let predict = |document: Option<&Value>, model: Option<&str>| {
-        let (_, fit) = model_fit(document, model, &settings.gravity, &settings.ladder.laws)
-            .map_err(|e| e.to_string())?;
-        let p = PredictSettings {
-            propagation: settings.ladder.fit.propagation,
-            ..PredictSettings::default()
-        };
-        predict_places(ctx.ephemeris.as_ref(), &fit, &points, &p).map_err(|e| e.to_string())
+    let p = PredictSettings {
+        propagation: settings.ladder.fit.propagation,
+        ..PredictSettings::default()
     };
-    let now = predict(input.document_value, None)?;
-    let gravity = predict(input.document_value, Some("gravity")).ok();
+    let predict = |document: Option<&Value>| {
+        predict_stored(
+            ctx.ephemeris.as_ref(),
+            document,
+            None,
+            &settings.gravity,
+            &settings.ladder.laws,
+            &points,
+            &p,
+        )
+        .map_err(|e| e.to_string())
+    };
+    let now = predict(input.document_value)?;
+    // Gravity alone's ellipse: its own places when it took part in the
+    // average, else predicted on its own.
+    let gravity = match now.average.places_of("gravity") {
+        Some(places) => Some(places.to_vec()),
+        None => model_fit(
+            input.document_value,
+            Some("gravity"),
+            &settings.gravity,
+            &settings.ladder.laws,
+        )
+        .ok()
+        .and_then(|(_, fit)| predict_places(ctx.ephemeris.as_ref(), &fit, &points, &p).ok()),
+    };
     let before = match input.previous_document {
-        Some(d) => predict(Some(d), None).ok(),
+        Some(d) => predict(Some(d)).ok(),
         None => None,
     };
     Ok(now
+        .average
+        .places
         .iter()
+        .zip(&now.places)
         .enumerate()
-        .map(|(k, p)| {
-            let shift = before.as_ref().and_then(|b| b.get(k)).map(|b| shift(p, b));
+        .map(|(k, (a, p))| {
+            let shift = before
+                .as_ref()
+                .and_then(|b| b.average.places.get(k))
+                .map(|b| shift(a, b));
             PlaceFacts {
                 days: input.prediction_days[k],
                 utc: p.time.utc().to_iso8601(0),
                 station: station.to_string(),
-                ra_deg: p.ra_rad.to_degrees(),
-                dec_deg: p.dec_rad.to_degrees(),
-                sigma_arcsec: p.ellipse.semi_major_arcsec,
+                ra_deg: a.ra_rad.to_degrees(),
+                dec_deg: a.dec_rad.to_degrees(),
+                sigma_arcsec: a.ellipse.semi_major_arcsec,
+                recommended_sigma_arcsec: p.ellipse.semi_major_arcsec,
                 gravity_sigma_arcsec: gravity
                     .as_ref()
                     .and_then(|g| g.get(k))
@@ -342,8 +377,11 @@ fn try_places(
 /// of the old ellipse along that direction: whether observers pointing
 /// where they were told, with the uncertainty they were told, would now
 /// miss it.
-fn shift(now: &PlacePrediction, before: &PlacePrediction) -> (f64, Option<f64>) {
-    let offset = before.offset_arcsec(now.ra_rad, now.dec_rad);
+fn shift(now: &AveragedPlace, before: &AveragedPlace) -> (f64, Option<f64>) {
+    let offset = Vector2::new(
+        wrap_pi(now.ra_rad - before.ra_rad) * before.dec_rad.cos(),
+        now.dec_rad - before.dec_rad,
+    ) * ARCSEC_PER_RAD;
     let distance = offset.norm();
     let sigmas = before.ellipse.mahalanobis2(offset).map(f64::sqrt);
     (distance, sigmas)

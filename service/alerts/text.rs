@@ -271,18 +271,18 @@ fn what_happened(c: &Crossing, f: &SolutionFacts, s: &AlertSettings) -> String {
             if let Some(p) = place {
                 let _ = write!(
                     t,
-                    "The place predicted for {} ({} days after this fit) from station {} moved {:.1} arcsec since solution {}, {:.1} sigma of its 1-sigma ellipse of {:.2} arcsec (the rule: more than {} arcsec and {} sigma). Now RA {:.5} deg, Dec {:.5} deg.{}",
+                    "The place predicted for {} ({} days after this fit) from station {}, averaged over the models the data allow, moved {:.1} arcsec since solution {}: {:.1} sigma of that solution's averaged ellipse (the rule: more than {} arcsec and {} sigma). Now RA {:.5} deg, Dec {:.5} deg, 1-sigma ellipse {:.2} arcsec.{}",
                     p.utc,
                     p.days,
                     p.station,
                     p.shift_arcsec.unwrap_or(0.0),
                     f.previous_seq.map_or("-".into(), |s| s.to_string()),
                     p.shift_sigma.unwrap_or(0.0),
-                    p.sigma_arcsec,
                     s.prediction_shift_arcsec,
                     s.prediction_shift_sigma,
                     p.ra_deg,
                     p.dec_deg,
+                    p.sigma_arcsec,
                     if raised { " Follow-up pointing may need updating." } else { "" }
                 );
             }
@@ -351,11 +351,12 @@ fn cost(f: &SolutionFacts) -> String {
         if let Some(g) = p.gravity_sigma_arcsec {
             let _ = write!(
                 t,
-                " {}-day place {:.2} -> {:.2} arcsec ({});",
+                " {}-day place {:.2} -> {:.2} arcsec ({}), {:.2} arcsec averaged over the models;",
                 p.days,
                 g,
-                p.sigma_arcsec,
-                ratio(g, p.sigma_arcsec)
+                p.recommended_sigma_arcsec,
+                ratio(g, p.recommended_sigma_arcsec),
+                p.sigma_arcsec
             );
         }
     }

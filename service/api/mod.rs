@@ -4,6 +4,7 @@
 //!
 //! - [`routes`]: the handlers and the router.
 //! - [`predict`]: predictions from a stored solution.
+//! - [`plan`]: the nights that would settle the rival models.
 //! - [`overrides`]: an analyst's decisions about an object.
 //! - [`alerts`]: the alerts and their deliveries; acknowledgements.
 //! - [`auth`]: the bearer token writes need.
@@ -17,6 +18,7 @@ pub mod alerts;
 pub mod auth;
 pub mod error;
 pub mod overrides;
+pub mod plan;
 pub mod predict;
 pub mod routes;
 

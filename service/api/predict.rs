@@ -9,11 +9,9 @@ use axum::Json;
 use serde::Deserialize;
 
 use crate::astro::time::UtcTime;
-use crate::fit::predict::{
-    predict_places, EllipseMethod, PredictSettings, PredictionPoint, MIN_SAMPLES,
-};
-use crate::solve::prediction::{utc_grid, PredictionDocument};
-use crate::solve::stored::{magnitude_law, model_fit};
+use crate::fit::predict::{EllipseMethod, PredictSettings, PredictionPoint, MIN_SAMPLES};
+use crate::solve::prediction::{predict_stored, utc_grid, PredictionDocument, StoredPredictError};
+use crate::solve::stored::magnitude_law;
 use crate::solve::SolveContext;
 
 use super::error::ApiError;
@@ -56,7 +54,7 @@ pub async fn predictions(
         .map_err(|e| ApiError::bad_request("bad_station", e.to_string()))?;
     let time = |name: &str, v: &Option<String>| -> Result<UtcTime, ApiError> {
         let text = required(v, name)?;
-        UtcTime::parse_iso8601(text)
+        UtcTime::parse_iso8601_or_date(text)
             .map_err(|e| ApiError::bad_request("bad_time", format!("{name}={text}: {e}")))
     };
     let (from, to) = (time("from", &q.from)?, time("to", &q.to)?);
@@ -91,13 +89,6 @@ pub async fn predictions(
     let seq = record.seq;
     let name = crate::worker::job::best_designation(&object);
     let doc = tokio::task::spawn_blocking(move || {
-        let (model_name, fit) = model_fit(
-            record.document.as_ref(),
-            model.as_deref(),
-            &ctx.settings.gravity,
-            &ctx.settings.ladder.laws,
-        )
-        .map_err(|e| ApiError::new(StatusCode::CONFLICT, "no_orbit", e.to_string()))?;
         let points: Vec<PredictionPoint> = times
             .into_iter()
             .map(|time| PredictionPoint { time, observer })
@@ -108,21 +99,31 @@ pub async fn predictions(
             magnitude: record.document.as_ref().and_then(magnitude_law),
             ..PredictSettings::default()
         };
-        let places =
-            predict_places(ctx.ephemeris.as_ref(), &fit, &points, &settings).map_err(|e| {
-                ApiError::new(
-                    StatusCode::UNPROCESSABLE_ENTITY,
-                    "prediction_failed",
-                    e.to_string(),
-                )
-            })?;
+        let predicted = predict_stored(
+            ctx.ephemeris.as_ref(),
+            record.document.as_ref(),
+            model.as_deref(),
+            &ctx.settings.gravity,
+            &ctx.settings.ladder.laws,
+            &points,
+            &settings,
+        )
+        .map_err(|e| match e {
+            StoredPredictError::Stored(e) => {
+                ApiError::new(StatusCode::CONFLICT, "no_orbit", e.to_string())
+            }
+            StoredPredictError::Predict(e) => ApiError::new(
+                StatusCode::UNPROCESSABLE_ENTITY,
+                "prediction_failed",
+                e.to_string(),
+            ),
+        })?;
         Ok::<_, ApiError>(PredictionDocument::new(
             &name,
-            &model_name,
+            &predicted,
             method,
             &ctx.ephemeris.describe(),
             &station,
-            &places,
         ))
     })
     .await

@@ -570,6 +570,26 @@ impl UtcTime {
         .map_err(|e| bad(&e.to_string()))
     }
 
+    /// [`UtcTime::parse_iso8601`], or a calendar date alone (`YYYY-MM-DD`),
+    /// which means 00:00 UTC that day. For times a person types (command
+    /// options, API queries); observation records keep the strict form,
+    /// since ADES requires obsTime to carry the time of day.
+    pub fn parse_iso8601_or_date(text: &str) -> Result<Self, TimeError> {
+        let body = text.trim();
+        // A date has no time separator and no clock colons; anything else
+        // is read (and its errors explained) as a full time.
+        if body.is_empty() || body.contains(['T', ' ', ':']) {
+            return Self::parse_iso8601(text);
+        }
+        Self::parse_iso8601(&format!("{body}T00:00:00Z")).map_err(|e| match e {
+            TimeError::InvalidIso8601 { reason, .. } => TimeError::InvalidIso8601 {
+                text: text.to_string(),
+                reason: format!("{reason} (a date alone is YYYY-MM-DD)"),
+            },
+            other => other,
+        })
+    }
+
     /// From a hifitime epoch in any time scale. A UTC epoch is read as its
     /// calendar day and time of day (so the configured leap-second table,
     /// not hifitime's, decides TAI - UTC); other scales go through TAI.
@@ -1145,6 +1165,36 @@ mod tests {
         ] {
             assert!(UtcTime::parse_iso8601(junk).is_err(), "{junk} accepted");
         }
+    }
+
+    #[test]
+    fn a_date_alone_is_midnight_utc_where_a_person_types_it() {
+        // Issue 12, point 7: a date alone is accepted where a time is
+        // asked and means 00:00 UTC; ISO 8601 calendar dates are YYYY-MM-DD.
+        let day = UtcTime::parse_iso8601_or_date("2026-09-01").unwrap();
+        assert_eq!(day, UtcTime::parse_iso8601("2026-09-01T00:00:00Z").unwrap());
+        assert_eq!(UtcTime::parse_iso8601_or_date(" 2026-09-01 ").unwrap(), day);
+        // Full times read as the strict parser reads them.
+        assert_eq!(
+            UtcTime::parse_iso8601_or_date("2026-09-01T06:30:00Z").unwrap(),
+            UtcTime::parse_iso8601("2026-09-01T06:30:00Z").unwrap()
+        );
+        // ADES obsTime needs the time of day (ADES 2022 obsTime format):
+        // the strict parser still refuses a date alone.
+        assert!(UtcTime::parse_iso8601("2026-09-01").is_err());
+        for junk in [
+            "2026-09-31",
+            "2026-9-01",
+            "20260901",
+            "",
+            "yesterday",
+            "2026-09-01T",
+        ] {
+            let e = UtcTime::parse_iso8601_or_date(junk);
+            assert!(e.is_err(), "{junk} accepted");
+        }
+        let e = UtcTime::parse_iso8601_or_date("2026-09-31").unwrap_err();
+        assert!(e.to_string().contains("\"2026-09-31\""), "{e}");
     }
 
     #[test]

@@ -74,6 +74,18 @@ pub fn load_stations(path: &Path) -> Result<StationList, Vec<ConfigProblem>> {
     parse_stations(path, &text)
 }
 
+/// The station list shipped in `config/stations.toml` (invented sites),
+/// compiled in so the batch commands find it from any working directory.
+pub const SHIPPED_STATIONS_TOML: &str = include_str!("../../config/stations.toml");
+
+/// The name the shipped list goes by in messages: it is no file on disk.
+pub const SHIPPED_STATIONS_NAME: &str = "config/stations.toml (built in)";
+
+/// The shipped station list, parsed (see [`SHIPPED_STATIONS_TOML`]).
+pub fn shipped_stations() -> Result<StationList, Vec<ConfigProblem>> {
+    parse_stations(Path::new(SHIPPED_STATIONS_NAME), SHIPPED_STATIONS_TOML)
+}
+
 /// Parses station-list text (`[[station]]` entries).
 pub fn parse_stations(path: &Path, text: &str) -> Result<StationList, Vec<ConfigProblem>> {
     let src = Source::new(path, text);
@@ -167,6 +179,15 @@ mod tests {
         let s = list.get("ZQA").unwrap();
         assert_eq!(s.latitude_deg, -23.11);
         assert_eq!(s.sigma_arcsec, Some(0.5));
+    }
+
+    #[test]
+    fn the_shipped_list_is_built_in() {
+        // config/stations.toml lists four invented sites, ZQA to ZQD.
+        let list = shipped_stations().expect("the shipped list parses");
+        let codes: Vec<&str> = list.iter().map(|s| s.code.as_str()).collect();
+        assert_eq!(codes, ["ZQA", "ZQB", "ZQC", "ZQD"]);
+        assert_eq!(list.get("ZQB").map(|s| s.sigma_arcsec), Some(Some(0.4)));
     }
 
     #[test]

@@ -103,6 +103,33 @@ fn problems_in_the_station_list_name_that_file() {
     assert_eq!(err.problems[0].reason, "required key is missing");
 }
 
+/// Issue 12, point 7: an unreadable station list is reported at the key
+/// that names it, with the path that was tried.
+#[test]
+fn an_unreadable_station_list_names_the_key_and_the_path() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("config.toml");
+    std::fs::write(
+        &path,
+        "[directories]\nincoming = \"a\"\narchive = \"b\"\nrejected = \"c\"\ndatabase = \"d\"\n[stations]\nfile = \"absent.toml\"\n",
+    )
+    .unwrap();
+    let err = Config::load(&path).unwrap_err();
+    assert_eq!(err.problems.len(), 1, "{err}");
+    let p = &err.problems[0];
+    assert_eq!(p.file, path);
+    assert_eq!((p.line, p.key.as_str()), (7, "stations.file"));
+    let tried = dir.path().join("absent.toml");
+    assert!(
+        p.reason.starts_with(&format!(
+            "cannot read the station list {}: ",
+            tried.display()
+        )),
+        "{}",
+        p.reason
+    );
+}
+
 #[test]
 fn wrong_types_and_bad_choices_are_explained() {
     let text = "\

@@ -347,6 +347,12 @@ fn shells(settings: &LadderSettings) -> Vec<ModelFit> {
     models
 }
 
+/// The names of the models a ladder with these settings fits, in its
+/// order: what a request may name before any fit has run.
+pub fn model_names(settings: &LadderSettings) -> Vec<String> {
+    shells(settings).iter().map(ModelFit::name).collect()
+}
+
 /// The ladder with each model fitted by `fit_one` (the real fit, or in
 /// tests one that fails on purpose).
 pub(crate) fn run_ladder(

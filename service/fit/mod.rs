@@ -13,6 +13,10 @@
 //! - [`photometry`]: brightness laws (M1/K1, H/G), outburst and activity flags.
 //! - [`predict`]: places, rates, geometry and the sky-plane uncertainty
 //!   ellipse (linear or Monte Carlo) at times to come.
+//! - [`discriminate`]: how well a night's tracklet would tell two models
+//!   apart (D^2, nights to settle).
+//! - [`mixture`]: model-averaged predictions (weights exp(-dBIC/2), total
+//!   variance).
 //! - [`sampling`]: seeded normal deviates and multivariate normal draws.
 //! - [`extend`]: a fit grown from a few nights to the whole arc.
 //! - [`initial`]: initial orbits from the observations alone (Gauss's
@@ -21,10 +25,12 @@
 //! Nothing here reads files or knows about the store: the caller turns its
 //! records into [`observe::AstrometricObservation`]s.
 pub mod consistency;
+pub mod discriminate;
 pub mod extend;
 pub mod initial;
 pub mod ladder;
 pub mod lsq;
+pub mod mixture;
 pub mod observe;
 pub mod photometry;
 pub mod predict;

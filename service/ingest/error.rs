@@ -35,7 +35,12 @@ pub enum Problem {
     NotPositive { text: String },
     #[error("'{text}' is not a UTC time: {why}")]
     BadTime { text: String, why: String },
-    #[error("station '{code}' is not in the station list")]
+    // The remedy is named: the station list is not always the one the
+    // reader thinks (a configuration without one, or another file).
+    #[error(
+        "station '{code}' is not in the station list (name a list that has it \
+         with --stations or the configuration's stations.file)"
+    )]
     UnknownStation { code: String },
     #[error("no designation: one of trkSub, provID or permID is required")]
     MissingDesignation,
@@ -125,12 +130,104 @@ pub struct Rejection {
 
 impl std::fmt::Display for Rejection {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        write!(f, "{}:{}: ", self.file, self.line)?;
+        // Line 0 means the whole file: no line is shown, and a file that
+        // could not be read at all says so in plain words.
+        match (&self.problem, self.line) {
+            (Problem::Io { why }, 0) => return write!(f, "cannot open {}: {why}", self.file),
+            (_, 0) => write!(f, "{}: ", self.file)?,
+            _ => write!(f, "{}:{}: ", self.file, self.line)?,
+        }
+        self.write_reason(f)
+    }
+}
+
+impl Rejection {
+    /// The field and reason, without file or line.
+    fn write_reason(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         if let Some(field) = &self.field {
             write!(f, "field '{field}': ")?;
         }
         write!(f, "{}", self.problem)
     }
+}
+
+/// How many line numbers a group of rejections shows in text.
+pub const GROUP_LINES_SHOWN: usize = 5;
+
+/// Rejections that differ only in their line: one file, one field, one
+/// reason with the same words. Text output shows a group as one line, so a
+/// reason repeated on thousands of lines does not bury the others.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RejectionGroup<'a> {
+    /// The group's first rejection, in the order they were given.
+    pub first: &'a Rejection,
+    /// How many rejections the group holds.
+    pub count: usize,
+    /// The lines of its first rejections, at most the number asked for.
+    pub lines: Vec<u32>,
+}
+
+impl std::fmt::Display for RejectionGroup<'_> {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        if self.count == 1 {
+            return write!(f, "{}", self.first);
+        }
+        // The lines come before the reason, whose own words may end in
+        // parentheses.
+        let lines: Vec<String> = self.lines.iter().map(u32::to_string).collect();
+        let more = if self.count > self.lines.len() {
+            ", ..."
+        } else {
+            ""
+        };
+        write!(
+            f,
+            "{}: {} lines ({}{more}): ",
+            self.first.file,
+            self.count,
+            lines.join(", ")
+        )?;
+        self.first.write_reason(f)
+    }
+}
+
+/// Groups rejections by file, field and reason (its kind and its words),
+/// in the order each group's first rejection comes, keeping the first
+/// `lines_kept` line numbers of each.
+pub fn group_rejections(rejections: &[Rejection], lines_kept: usize) -> Vec<RejectionGroup<'_>> {
+    let mut index: std::collections::HashMap<(&str, Option<&str>, &str, String), usize> =
+        std::collections::HashMap::new();
+    let mut groups: Vec<RejectionGroup<'_>> = Vec::new();
+    for r in rejections {
+        let key = (
+            r.file.as_str(),
+            r.field.as_deref(),
+            r.problem.reason(),
+            r.problem.to_string(),
+        );
+        match index.get(&key) {
+            Some(&i) => {
+                let g = &mut groups[i];
+                g.count += 1;
+                if g.lines.len() < lines_kept {
+                    g.lines.push(r.line);
+                }
+            }
+            None => {
+                index.insert(key, groups.len());
+                groups.push(RejectionGroup {
+                    first: r,
+                    count: 1,
+                    lines: if lines_kept > 0 {
+                        vec![r.line]
+                    } else {
+                        Vec::new()
+                    },
+                });
+            }
+        }
+    }
+    groups
 }
 
 /// A problem with one named field of a record, before the reader has said
@@ -210,6 +307,97 @@ mod tests {
             let json = serde_json::to_value(&p).unwrap();
             assert_eq!(json["reason"], p.reason(), "{p:?}");
         }
+    }
+
+    /// One rejection per line, from a file and field the test invents.
+    fn at(file: &str, line: u32, field: &str, problem: Problem) -> Rejection {
+        Rejection {
+            file: file.into(),
+            line,
+            column: None,
+            field: Some(field.into()),
+            problem,
+        }
+    }
+
+    #[test]
+    fn one_reason_on_many_lines_is_one_group() {
+        // The layout is the one issue 12 (point 7) asks for: the count,
+        // the reason once, the first five lines.
+        let unknown = |code: &str| Problem::UnknownStation { code: code.into() };
+        let mut all: Vec<Rejection> = (3..10)
+            .map(|line| at("a.psv", line, "stn", unknown("ZQX")))
+            .collect();
+        // Another station's words, another file and another reason each
+        // make their own group.
+        all.insert(2, at("a.psv", 20, "stn", unknown("ZQY")));
+        all.push(at("b.psv", 4, "stn", unknown("ZQX")));
+        all.push(at("a.psv", 30, "ra", Problem::Missing));
+        all.push(at("a.psv", 31, "ra", Problem::Missing));
+        let groups = group_rejections(&all, GROUP_LINES_SHOWN);
+        let summary: Vec<(&str, u32, usize, Vec<u32>)> = groups
+            .iter()
+            .map(|g| {
+                (
+                    g.first.file.as_str(),
+                    g.first.line,
+                    g.count,
+                    g.lines.clone(),
+                )
+            })
+            .collect();
+        assert_eq!(
+            summary,
+            [
+                ("a.psv", 3, 7, vec![3, 4, 5, 6, 7]),
+                ("a.psv", 20, 1, vec![20]),
+                ("b.psv", 4, 1, vec![4]),
+                ("a.psv", 30, 2, vec![30, 31]),
+            ]
+        );
+        let text: Vec<String> = groups.iter().map(ToString::to_string).collect();
+        assert_eq!(
+            text[0],
+            "a.psv: 7 lines (3, 4, 5, 6, 7, ...): field 'stn': station 'ZQX' is not in the \
+             station list (name a list that has it with --stations or the configuration's \
+             stations.file)"
+        );
+        // A group of one reads as the rejection itself.
+        assert_eq!(text[2], all[8].to_string());
+        assert!(text[2].starts_with("b.psv:4: field 'stn': "), "{}", text[2]);
+        // Every line is shown when there are no more than asked for.
+        assert_eq!(
+            text[3],
+            "a.psv: 2 lines (30, 31): field 'ra': required but absent"
+        );
+        // Every rejection is in exactly one group.
+        assert_eq!(groups.iter().map(|g| g.count).sum::<usize>(), all.len());
+        assert!(group_rejections(&[], GROUP_LINES_SHOWN).is_empty());
+    }
+
+    #[test]
+    fn a_file_that_cannot_be_read_names_no_line() {
+        // Issue 12, point 7: "cannot open FILE: reason", no line 0.
+        let r = Rejection {
+            file: "gone.psv".into(),
+            line: 0,
+            column: None,
+            field: None,
+            problem: Problem::Io {
+                why: "No such file or directory (os error 2)".into(),
+            },
+        };
+        assert_eq!(
+            r.to_string(),
+            "cannot open gone.psv: No such file or directory (os error 2)"
+        );
+        let r = Rejection {
+            problem: Problem::Syntax {
+                why: "empty".into(),
+            },
+            ..r
+        };
+        assert_eq!(r.to_string(), "gone.psv: syntax: empty");
     }
 
     #[test]

@@ -16,7 +16,7 @@ mod validate;
 pub mod write;
 pub mod xml;
 
-pub use error::{ObsKind, Problem, Rejection};
+pub use error::{group_rejections, ObsKind, Problem, Rejection, RejectionGroup, GROUP_LINES_SHOWN};
 pub use field::{Field, RecordText, FIELD_COUNT};
 pub use identity::{ContentKey, DesignationKey, Linker, ObjectId};
 pub use record::{BlockContext, InertialPosition, Observation, ObserverLocation, Source, SpiceId};

@@ -5,7 +5,7 @@ use std::collections::BTreeMap;
 
 use serde::Serialize;
 
-use super::error::Rejection;
+use super::error::{group_rejections, Rejection, GROUP_LINES_SHOWN};
 use super::identity::{DesignationKey, ObjectId};
 
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -89,8 +89,10 @@ impl std::fmt::Display for IngestSummary {
         }
         if !self.rejected.is_empty() {
             writeln!(f, "rejected lines:")?;
-            for r in &self.rejected {
-                writeln!(f, "  {r}")?;
+            // One line per reason, not per rejected line: the JSON form
+            // keeps every rejection.
+            for g in group_rejections(&self.rejected, GROUP_LINES_SHOWN) {
+                writeln!(f, "  {g}")?;
             }
         }
         Ok(())

@@ -80,12 +80,58 @@ pub struct SolutionDocument {
     pub law: Option<super::verdicts::LawVerdict>,
     /// Came in bound or not, on the original barycentric 1/a.
     pub bound: Option<super::verdicts::BoundVerdict>,
+    /// Which non-gravitational terms are justified and which are not
+    /// determined (absent when the ladder tried none).
+    pub terms: Option<super::verdicts::TermsVerdict>,
+    /// The place a month after the arc under each model and averaged.
+    pub outlook: Option<super::outlook::Outlook>,
+    /// What the recommended terms cost in uncertainty against gravity
+    /// alone (absent when gravity alone is recommended).
+    pub cost_of_honesty: Option<super::verdicts::CostOfHonesty>,
     /// Where the verdict holds back (nothing fits, many rejected, an arc
     /// too short for non-gravitational terms).
     pub refusals: super::verdicts::Refusals,
+    /// Each station's share of the observations, and the astrometric
+    /// sigma it typically stated (what a plan assumes for it).
+    pub stations: Vec<StationUse>,
     /// Every observation's residual under the recommended model, in the
     /// order the fit saw them (empty when no model is recommended).
     pub residuals: Vec<ResidualDocument>,
+}
+
+/// One station's observations in the fit.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct StationUse {
+    pub station: String,
+    pub observations: usize,
+    /// The median of the larger of each observation's stated RA and Dec
+    /// sigmas; None when none stated one.
+    pub median_sigma_arcsec: Option<f64>,
+}
+
+/// Each station's count and median stated sigma, by code.
+pub fn station_use(observations: &[AstrometricObservation]) -> Vec<StationUse> {
+    let mut by: BTreeMap<&str, (usize, Vec<f64>)> = BTreeMap::new();
+    for o in observations {
+        let entry = by.entry(o.station.as_str()).or_default();
+        entry.0 += 1;
+        if let (Some(a), Some(d)) = (o.sigma_ra_arcsec, o.sigma_dec_arcsec) {
+            let s = a.max(d);
+            if s.is_finite() && s > 0.0 {
+                entry.1.push(s);
+            }
+        }
+    }
+    by.into_iter()
+        .map(|(station, (observations, mut sigmas))| {
+            sigmas.sort_by(f64::total_cmp);
+            StationUse {
+                station: station.to_string(),
+                observations,
+                median_sigma_arcsec: sigmas.get(sigmas.len() / 2).copied(),
+            }
+        })
+        .collect()
 }
 
 /// One observation's place in the recommended fit.
@@ -432,12 +478,16 @@ fn model_document(
 
 impl SolutionDocument {
     pub fn new(solved: &RecordsSolved) -> Self {
-        Self::of_solution(
+        let mut doc = Self::of_solution(
             &solved.solution,
             solved.ephemeris.describe(),
             solved.catalog_bias.clone(),
             solved.brightness.clone(),
-        )
+        );
+        doc.cost_of_honesty =
+            super::verdicts::cost_of_honesty(&doc.models, solved.outlook.as_ref());
+        doc.outlook = solved.outlook.clone();
+        doc
     }
 
     /// The document of a solution with what came with it: the ephemeris'
@@ -477,6 +527,8 @@ impl SolutionDocument {
             .collect();
         let law = super::verdicts::law_verdict(&models);
         let bound = super::verdicts::bound_verdict(&models, law.as_ref());
+        let terms = super::verdicts::terms_verdict(&models);
+        let cost_of_honesty = super::verdicts::cost_of_honesty(&models, None);
         let nights = solution
             .observations
             .iter()
@@ -512,7 +564,11 @@ impl SolutionDocument {
             models,
             law,
             bound,
+            terms,
+            outlook: None,
+            cost_of_honesty,
             refusals,
+            stations: station_use(&solution.observations),
             residuals: solution
                 .recommended_fit()
                 .map(|f| residuals(f, &solution.observations))

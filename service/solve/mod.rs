@@ -11,8 +11,14 @@
 //! - [`document`]: a solution as the JSON document the commands and the API
 //!   return.
 //! - [`report`]: the same solution as text for a person.
-//! - [`prediction`]: the time grid of a prediction request, and the
-//!   predicted places as a JSON document and a table.
+//! - [`prediction`]: the time grid of a prediction request, a model's
+//!   places with the model average beside them, as a JSON document and
+//!   tables.
+//! - [`outlook`]: the place a month after the arc under each model.
+//! - [`plan`]: the nights and stations that would tell the recommended
+//!   model from its strongest rival, ranked.
+//! - [`verdicts`]: what the data decide and what they leave open (the
+//!   law, the terms, bound or not, the cost of the terms, refusals).
 //! - [`stored`]: a stored solution document read back (a model's fit
 //!   rebuilt from its state and covariance, its brightness law).
 //!
@@ -26,6 +32,8 @@ pub mod brightness;
 pub mod catalog_bias;
 pub mod document;
 pub mod input;
+pub mod outlook;
+pub mod plan;
 pub mod prediction;
 pub mod report;
 pub mod settings;
@@ -291,6 +299,9 @@ pub struct RecordsSolved {
     /// The brightness laws at the recommended orbit (None without
     /// magnitudes or without a converged model).
     pub brightness: Option<brightness::BrightnessDocument>,
+    /// The place a month after the arc under each model (None when no
+    /// model converged or the prediction failed; logged).
+    pub outlook: Option<outlook::Outlook>,
     pub refused: Vec<input::InputError>,
 }
 
@@ -418,11 +429,27 @@ pub fn solve_records_in(
             &crate::fit::photometry::PhotometrySettings::default(),
         )
     });
+    let outlook = match outlook::outlook(
+        ephemeris.as_ref(),
+        scales,
+        &solution,
+        &crate::fit::predict::PredictSettings {
+            propagation: settings.ladder.fit.propagation,
+            ..Default::default()
+        },
+    ) {
+        Ok(o) => Some(o),
+        Err(why) => {
+            tracing::debug!(object, "no outlook: {why}");
+            None
+        }
+    };
     Ok(RecordsSolved {
         solution,
         ephemeris,
         catalog_bias,
         brightness,
+        outlook,
         refused,
     })
 }

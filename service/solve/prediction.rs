@@ -1,13 +1,26 @@
 //! Predictions for a station and a time grid, as the JSON document the
-//! `predict` command prints (and the API will serve) and as a table for a
-//! person. Units are in the field names; angles in degrees, ellipse axes
+//! `predict` command prints and the API serves, and as tables for a
+//! person: the chosen model's places and, beside them, the places averaged
+//! over the ladder's models. Units are in the field names; angles in degrees, ellipse axes
 //! in arcsec (1 sigma), rates in arcsec per minute.
 
 use serde::Serialize;
+use serde_json::Value;
 use thiserror::Error;
 
+use crate::astro::ephemeris::Ephemeris;
+use crate::astro::forces::{DistanceLaw, ForceModel};
 use crate::astro::time::{ScaledInstant, TimeError, TimeScales, UtcTime};
-use crate::fit::predict::{EllipseMethod, EllipseSource, PlacePrediction};
+use crate::fit::lsq::OrbitFit;
+use crate::fit::mixture::{
+    predict_averaged, AveragedPrediction, Candidate, LeftOut, ModelPredictError,
+};
+use crate::fit::predict::{
+    predict_places, EllipseMethod, EllipseSource, PlacePrediction, PredictError, PredictSettings,
+    PredictionPoint, SkyEllipse,
+};
+
+use super::stored::{converged_fits, model_fit, StoredError};
 
 /// Most grid times one request may ask for.
 pub const MAX_GRID_POINTS: usize = 10_000;
@@ -78,6 +91,90 @@ pub fn utc_grid(
         .collect()
 }
 
+/// A model's places and the model average beside them.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Predicted {
+    /// The model asked for (the recommended one by default).
+    pub model: String,
+    pub places: Vec<PlacePrediction>,
+    pub average: AveragedPrediction,
+    pub left_out: Vec<LeftOut>,
+}
+
+/// A model's prediction that failed, named.
+pub type PredictFailure = ModelPredictError;
+
+/// Predicts from `chosen` and from every candidate that carries weight,
+/// and averages the latter (see [`crate::fit::mixture`]). `candidates`
+/// are the converged models with their BICs; `chosen` must be one of
+/// them. A chosen model that takes part in the average is predicted once.
+pub fn predict_with_average(
+    ephemeris: &dyn Ephemeris,
+    candidates: &[(String, Option<f64>, &OrbitFit)],
+    chosen: &str,
+    points: &[PredictionPoint],
+    settings: &PredictSettings,
+) -> Result<Predicted, PredictFailure> {
+    let list: Vec<Candidate> = candidates
+        .iter()
+        .map(|(name, bic, fit)| Candidate {
+            name,
+            bic: *bic,
+            fit,
+        })
+        .collect();
+    let (average, left_out) = predict_averaged(ephemeris, &list, points, settings)?;
+    let places = match average.places_of(chosen) {
+        Some(p) => p.to_vec(),
+        None => {
+            let fit = candidates
+                .iter()
+                .find(|(name, _, _)| name == chosen)
+                .map(|(_, _, fit)| *fit)
+                .ok_or_else(|| PredictFailure::new(chosen, PredictError::NoCovariance))?;
+            predict_places(ephemeris, fit, points, settings)
+                .map_err(|source| PredictFailure::new(chosen, source))?
+        }
+    };
+    Ok(Predicted {
+        model: chosen.to_string(),
+        places,
+        average,
+        left_out,
+    })
+}
+
+/// Why a stored solution gives no prediction.
+#[derive(Debug, Error)]
+pub enum StoredPredictError {
+    #[error("{0}")]
+    Stored(#[from] StoredError),
+    #[error("{0}")]
+    Predict(#[from] Box<PredictFailure>),
+}
+
+/// [`predict_with_average`] from a stored solution document: `model` by
+/// name (the recommended one when None) and the average over every
+/// converged model it holds, under the configured gravity and laws.
+pub fn predict_stored(
+    ephemeris: &dyn Ephemeris,
+    document: Option<&Value>,
+    model: Option<&str>,
+    gravity: &ForceModel,
+    laws: &[DistanceLaw],
+    points: &[PredictionPoint],
+    settings: &PredictSettings,
+) -> Result<Predicted, StoredPredictError> {
+    let (chosen, _) = model_fit(document, model, gravity, laws)?;
+    let fits = converged_fits(document, gravity, laws)?;
+    let candidates: Vec<(String, Option<f64>, &OrbitFit)> = fits
+        .iter()
+        .map(|(name, bic, fit)| (name.clone(), *bic, fit))
+        .collect();
+    predict_with_average(ephemeris, &candidates, &chosen, points, settings)
+        .map_err(|e| StoredPredictError::Predict(Box::new(e)))
+}
+
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct PredictionDocument {
     pub object: String,
@@ -90,6 +187,45 @@ pub struct PredictionDocument {
     pub ephemeris: String,
     pub station: String,
     pub entries: Vec<PredictionEntry>,
+    /// The same instants averaged over the ladder's models.
+    pub averaged: AveragedDocument,
+}
+
+/// Places averaged over the converged models, weights exp(-dBIC/2), the
+/// covariance by the law of total variance.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct AveragedDocument {
+    pub members: Vec<MemberDocument>,
+    /// Models that took no part, and why.
+    pub left_out: Vec<LeftOutDocument>,
+    pub entries: Vec<AveragedEntry>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct MemberDocument {
+    pub model: String,
+    pub delta_bic: f64,
+    pub weight: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct LeftOutDocument {
+    pub model: String,
+    pub reason: String,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct AveragedEntry {
+    pub utc: String,
+    pub ra_deg: f64,
+    pub dec_deg: f64,
+    /// The averaged place minus the model's, (RA cos Dec, Dec).
+    pub offset_from_model_arcsec: [f64; 2],
+    /// 1 sigma, the models' disagreement included.
+    pub ellipse: EllipseDocument,
+    /// The semi-major axis of the models' disagreement alone (the spread
+    /// of their places about the average), 1 sigma.
+    pub between_models_arcsec: f64,
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
@@ -167,13 +303,66 @@ impl PredictionEntry {
                 dec_arcsec_per_min: p.rate_arcsec_per_min.y,
             },
             magnitude: p.magnitude,
-            ellipse: EllipseDocument {
-                semi_major_arcsec: p.ellipse.semi_major_arcsec,
-                semi_minor_arcsec: p.ellipse.semi_minor_arcsec,
-                position_angle_deg: p.ellipse.position_angle_deg,
-                method,
-                mean_offset_arcsec,
-            },
+            ellipse: ellipse_document(&p.ellipse, method, mean_offset_arcsec),
+        }
+    }
+}
+
+fn ellipse_document(
+    e: &SkyEllipse,
+    method: &'static str,
+    mean_offset: Option<[f64; 2]>,
+) -> EllipseDocument {
+    EllipseDocument {
+        semi_major_arcsec: e.semi_major_arcsec,
+        semi_minor_arcsec: e.semi_minor_arcsec,
+        position_angle_deg: e.position_angle_deg,
+        method,
+        mean_offset_arcsec: mean_offset,
+    }
+}
+
+impl AveragedDocument {
+    fn new(p: &Predicted, method: EllipseMethod) -> Self {
+        Self {
+            members: p
+                .average
+                .members
+                .iter()
+                .map(|m| MemberDocument {
+                    model: m.name.clone(),
+                    delta_bic: m.delta_bic,
+                    weight: m.weight,
+                })
+                .collect(),
+            left_out: p
+                .left_out
+                .iter()
+                .map(|l| LeftOutDocument {
+                    model: l.name.clone(),
+                    reason: l.reason.clone(),
+                })
+                .collect(),
+            entries: p
+                .average
+                .places
+                .iter()
+                .zip(&p.places)
+                .map(|(a, m)| {
+                    let offset = m.offset_arcsec(a.ra_rad, a.dec_rad);
+                    AveragedEntry {
+                        utc: m.time.utc().to_iso8601(3),
+                        ra_deg: a.ra_rad.to_degrees(),
+                        dec_deg: a.dec_rad.to_degrees(),
+                        offset_from_model_arcsec: [offset.x, offset.y],
+                        ellipse: ellipse_document(&a.ellipse, method_name(method), None),
+                        between_models_arcsec: SkyEllipse::from_covariance(
+                            a.between_models_arcsec2,
+                        )
+                        .semi_major_arcsec,
+                    }
+                })
+                .collect(),
         }
     }
 }
@@ -181,15 +370,16 @@ impl PredictionEntry {
 impl PredictionDocument {
     pub fn new(
         object: &str,
-        model: &str,
+        predicted: &Predicted,
         method: EllipseMethod,
         ephemeris: &str,
         station: &str,
-        places: &[PlacePrediction],
     ) -> Self {
+        let places = &predicted.places;
         Self {
+            averaged: AveragedDocument::new(predicted, method),
             object: object.to_string(),
-            model: model.to_string(),
+            model: predicted.model.clone(),
             method: method_name(method),
             monte_carlo: match method {
                 EllipseMethod::Linear => None,
@@ -203,7 +393,8 @@ impl PredictionDocument {
         }
     }
 
-    /// The document as a table for a person.
+    /// The document as tables for a person: the model's places, then
+    /// the same instants averaged over the models.
     pub fn text(&self) -> String {
         use std::fmt::Write;
         let mut out = String::new();
@@ -213,34 +404,54 @@ impl PredictionDocument {
         };
         let _ = writeln!(
             out,
-            "{}: model {}, station {}\nephemeris: {}\nellipse: 1 sigma, {method}\n",
+            "{}: model {}, station {}\nephemeris: {}\nellipses: 1 sigma, {method}\n",
             self.object, self.model, self.station, self.ephemeris
+        );
+        let magnitudes = self.entries.iter().any(|e| e.magnitude.is_some());
+        // Two heading lines: what, then the unit.
+        let _ = writeln!(
+            out,
+            "{:<24} {:>11} {:>11} {:>9} {:>9} {:>10} {:>6} {:>10} {:>9} {:>8} {:>8} {:>8}{}",
+            "time",
+            "RA",
+            "Dec",
+            "from obs.",
+            "from Sun",
+            "elongation",
+            "phase",
+            "motion RA",
+            "motion",
+            "ellipse",
+            "ellipse",
+            "ellipse",
+            if magnitudes { "  predicted" } else { "" }
         );
         let _ = writeln!(
             out,
-            "{:<24} {:>11} {:>11} {:>9} {:>9} {:>7} {:>6} {:>9} {:>9} {:>9} {:>9} {:>6}{}",
-            "UTC",
-            "RA deg",
-            "Dec deg",
-            "delta au",
-            "r au",
-            "elong",
-            "phase",
-            "dRA\"/min",
-            "dDec\"/min",
-            "a arcsec",
-            "b arcsec",
-            "PA",
-            if self.entries.iter().any(|e| e.magnitude.is_some()) {
-                "    mag"
-            } else {
-                ""
-            }
+            "{:<24} {:>11} {:>11} {:>9} {:>9} {:>10} {:>6} {:>10} {:>9} {:>8} {:>8} {:>8}{}",
+            "(UTC)",
+            "(deg)",
+            "(deg)",
+            "(au)",
+            "(au)",
+            "(deg)",
+            "(deg)",
+            "cosDec",
+            "Dec",
+            "major",
+            "minor",
+            "PA (deg)",
+            if magnitudes { "  mag (V)" } else { "" }
+        );
+        let _ = writeln!(
+            out,
+            "{:<24} {:>11} {:>11} {:>9} {:>9} {:>10} {:>6} {:>10} {:>9} {:>8} {:>8} {:>8}",
+            "", "", "", "", "", "", "", "(\"/min)", "(\"/min)", "(\")", "(\")", ""
         );
         for e in &self.entries {
             let _ = write!(
                 out,
-                "{:<24} {:>11.6} {:>+11.6} {:>9.5} {:>9.5} {:>7.2} {:>6.2} {:>+9.4} {:>+9.4} {:>9.3} {:>9.3} {:>6.1}",
+                "{:<24} {:>11.6} {:>+11.6} {:>9.5} {:>9.5} {:>10.2} {:>6.2} {:>+10.4} {:>+9.4} {:>8.3} {:>8.3} {:>8.1}",
                 e.utc,
                 e.ra_deg,
                 e.dec_deg,
@@ -255,9 +466,70 @@ impl PredictionDocument {
                 e.ellipse.position_angle_deg
             );
             if let Some(m) = e.magnitude {
-                let _ = write!(out, " {m:>6.2}");
+                let _ = write!(out, " {m:>10.2}");
             }
             out.push('\n');
+        }
+        let a = &self.averaged;
+        let members: Vec<String> = a
+            .members
+            .iter()
+            .map(|m| {
+                if m.weight < 0.005 {
+                    format!("{} <1%", m.model)
+                } else {
+                    format!("{} {:.0}%", m.model, 100.0 * m.weight)
+                }
+            })
+            .collect();
+        let _ = writeln!(
+            out,
+            "\nAveraged over the models the data allow (weights from BIC differences): {}",
+            members.join(", ")
+        );
+        for l in &a.left_out {
+            let _ = writeln!(out, "  left out: {} ({})", l.model, l.reason);
+        }
+        let _ = writeln!(
+            out,
+            "{:<24} {:>11} {:>11} {:>10} {:>10} {:>8} {:>8} {:>8} {:>10}",
+            "time",
+            "RA",
+            "Dec",
+            "from model",
+            "from model",
+            "ellipse",
+            "ellipse",
+            "ellipse",
+            "models'"
+        );
+        let _ = writeln!(
+            out,
+            "{:<24} {:>11} {:>11} {:>10} {:>10} {:>8} {:>8} {:>8} {:>10}",
+            "(UTC)",
+            "(deg)",
+            "(deg)",
+            "RAcosDec",
+            "Dec (\")",
+            "major",
+            "minor",
+            "PA (deg)",
+            "spread (\")"
+        );
+        for e in &a.entries {
+            let _ = writeln!(
+                out,
+                "{:<24} {:>11.6} {:>+11.6} {:>+10.3} {:>+10.3} {:>8.3} {:>8.3} {:>8.1} {:>10.3}",
+                e.utc,
+                e.ra_deg,
+                e.dec_deg,
+                e.offset_from_model_arcsec[0],
+                e.offset_from_model_arcsec[1],
+                e.ellipse.semi_major_arcsec,
+                e.ellipse.semi_minor_arcsec,
+                e.ellipse.position_angle_deg,
+                e.between_models_arcsec
+            );
         }
         out
     }

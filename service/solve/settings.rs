@@ -41,6 +41,28 @@ pub fn weight_settings(config: &FitConfig, stations: &StationList) -> WeightSett
     }
 }
 
+/// The non-gravitational rungs of the configured ladder (gravity, always
+/// fitted first, left out).
+fn rungs(config: &FitConfig) -> Vec<FreeParameters> {
+    config
+        .ladder
+        .iter()
+        .map(|terms| free_parameters(terms))
+        .filter(|f| f.count() > 0)
+        .collect()
+}
+
+/// The names of the models the configured ladder fits ("gravity",
+/// "A1 water-ice", ...), in its order, so a request naming a model can be
+/// checked before the fit, which takes seconds.
+pub fn ladder_model_names(config: &FitConfig) -> Vec<String> {
+    crate::fit::ladder::model_names(&LadderSettings {
+        rungs: rungs(config),
+        laws: config.laws.iter().copied().map(distance_law).collect(),
+        ..LadderSettings::default()
+    })
+}
+
 /// Everything [`super::solve`] needs, from the configuration.
 pub fn solve_settings(
     config: &FitConfig,
@@ -55,12 +77,7 @@ pub fn solve_settings(
     };
     let ladder = LadderSettings {
         // Gravity is always the first rung; the configuration may list it.
-        rungs: config
-            .ladder
-            .iter()
-            .map(|terms| free_parameters(terms))
-            .filter(|f| f.count() > 0)
-            .collect(),
+        rungs: rungs(config),
         laws: config.laws.iter().copied().map(distance_law).collect(),
         significance_sigma: config.significance_sigma,
         fit,
@@ -87,6 +104,38 @@ mod tests {
         assert_eq!(s.ladder.significance_sigma, d.significance_sigma);
         assert_eq!(s.ladder.fit.reject_chi2, 8.0);
         assert!(s.ladder.fit.weights.night_inflation);
+    }
+
+    #[test]
+    fn model_names_are_known_before_the_fit() {
+        // The default ladder (FitSettings::default, which
+        // config/example.toml's `ladder` and `laws` repeat): gravity, then
+        // the rungs A2, A1, A1+A2, A1+A2+A3 under each law, named as the
+        // fit report names them (fit::ladder::model_name).
+        let names = ladder_model_names(&FitConfig::default());
+        assert_eq!(
+            names,
+            [
+                "gravity",
+                "A2 water-ice",
+                "A1 water-ice",
+                "A1+A2 water-ice",
+                "A1+A2+A3 water-ice",
+                "A2 inverse-square",
+                "A1 inverse-square",
+                "A1+A2 inverse-square",
+                "A1+A2+A3 inverse-square",
+            ]
+        );
+        let config = FitConfig {
+            ladder: vec![vec![], vec![NonGravTerm::A1]],
+            laws: vec![NonGravLaw::WaterIceScaled { r0_au: 5.0 }],
+            ..FitConfig::default()
+        };
+        assert_eq!(
+            ladder_model_names(&config),
+            ["gravity", "A1 water-ice-scaled"]
+        );
     }
 
     #[test]

@@ -166,6 +166,28 @@ pub fn model_fit(
     Ok((m.name, fit))
 }
 
+/// Every converged model of a stored document with its BIC and fit, in
+/// the document's order: the candidates of a model average.
+pub fn converged_fits(
+    document: Option<&Value>,
+    gravity: &ForceModel,
+    laws: &[DistanceLaw],
+) -> Result<Vec<(String, Option<f64>, OrbitFit)>, StoredError> {
+    let doc = document.ok_or(StoredError::NoDocument)?;
+    let mut out = Vec::new();
+    for m in doc["models"].as_array().into_iter().flatten() {
+        if m["converged"].as_bool() != Some(true) {
+            continue;
+        }
+        let Some(name) = m["name"].as_str() else {
+            continue;
+        };
+        let (name, fit) = model_fit(Some(doc), Some(name), gravity, laws)?;
+        out.push((name, m["bic"].as_f64(), fit));
+    }
+    Ok(out)
+}
+
 /// The brightness law the stored solution preferred, if any.
 pub fn magnitude_law(document: &Value) -> Option<MagnitudeLaw> {
     let p = &document["photometry"];

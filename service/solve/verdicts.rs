@@ -5,6 +5,8 @@
 
 use serde::Serialize;
 
+use crate::fit::mixture::{average_scalar, bic_weights};
+
 use super::document::{ModelDocument, ValueSigma};
 
 /// A BIC difference below this is not strong evidence for one model over
@@ -214,37 +216,21 @@ pub fn model_average(
     models: &[ModelDocument],
     value: impl Fn(&ModelDocument) -> Option<ValueSigma>,
 ) -> Option<ValueSigma> {
-    let points: Vec<(f64, ValueSigma)> = models
+    let points: Vec<(Option<f64>, ValueSigma)> = models
         .iter()
         .filter(|m| m.converged)
-        .filter_map(|m| Some((m.bic?, value(m)?)))
-        .filter(|(b, v)| b.is_finite() && v.value.is_finite() && v.sigma.is_finite())
+        .filter_map(|m| Some((m.bic, value(m)?)))
+        .filter(|(b, v)| {
+            b.is_some_and(f64::is_finite) && v.value.is_finite() && v.sigma.is_finite()
+        })
         .collect();
-    let best = points.iter().map(|(b, _)| *b).fold(f64::INFINITY, f64::min);
-    let weights: Vec<f64> = points
-        .iter()
-        .map(|(b, _)| (-(b - best) / 2.0).exp())
+    let bics: Vec<Option<f64>> = points.iter().map(|(b, _)| *b).collect();
+    let weighted: Vec<(f64, f64, f64)> = bic_weights(&bics)
+        .into_iter()
+        .zip(&points)
+        .map(|(w, (_, v))| (w, v.value, v.sigma))
         .collect();
-    let total: f64 = weights.iter().sum();
-    if points.is_empty() || total <= 0.0 {
-        return None;
-    }
-    let mean = points
-        .iter()
-        .zip(&weights)
-        .map(|((_, v), w)| w * v.value)
-        .sum::<f64>()
-        / total;
-    let variance = points
-        .iter()
-        .zip(&weights)
-        .map(|((_, v), w)| w * (v.sigma * v.sigma + (v.value - mean).powi(2)))
-        .sum::<f64>()
-        / total;
-    Some(ValueSigma {
-        value: mean,
-        sigma: variance.sqrt(),
-    })
+    average_scalar(&weighted).map(|(value, sigma)| ValueSigma { value, sigma })
 }
 
 /// Came in bound or not. The recommended model's original 1/a, or, when
@@ -309,6 +295,223 @@ pub fn bound_verdict(models: &[ModelDocument], law: Option<&LawVerdict>) -> Opti
         one_over_a_original_per_au: figure,
         sigmas_from_zero: sigmas,
         averaged,
+        text,
+    })
+}
+
+/// One term's standing: where it was measured and how far from zero.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct TermStanding {
+    pub term: String,
+    /// The model the figure comes from; None when no model with the term
+    /// converged.
+    pub model: Option<String>,
+    pub value: Option<ValueSigma>,
+    pub sigmas_from_zero: Option<f64>,
+    /// That model's BIC above the recommended one's.
+    pub delta_bic: Option<f64>,
+}
+
+/// Which non-gravitational terms the data justify and which they leave
+/// open.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct TermsVerdict {
+    /// The recommended model's terms.
+    pub justified: Vec<TermStanding>,
+    /// Every other term the ladder tried, as measured in the smallest
+    /// richer model that has it.
+    pub not_determined: Vec<TermStanding>,
+    pub text: String,
+}
+
+fn standing(term: &str, m: &ModelDocument, r_bic: Option<f64>) -> TermStanding {
+    let value = m.nongrav.get(term).copied();
+    TermStanding {
+        term: term.to_string(),
+        model: Some(m.name.clone()),
+        value,
+        sigmas_from_zero: value
+            .filter(|v| v.sigma > 0.0)
+            .map(|v| v.value.abs() / v.sigma),
+        delta_bic: m.bic.zip(r_bic).map(|(b, r)| b - r),
+    }
+}
+
+fn standing_text(t: &TermStanding) -> String {
+    match (&t.model, t.sigmas_from_zero) {
+        (Some(model), Some(s)) => format!(
+            "{} ({s:.1} sigma from zero in {model}{})",
+            t.term,
+            t.delta_bic
+                .map_or(String::new(), |d| format!(", BIC {d:+.1}"))
+        ),
+        _ => format!("{} (no fit with it converged)", t.term),
+    }
+}
+
+/// Which terms are justified (the recommended model's) and which are not
+/// determined (the others the ladder tried: each measured in the smallest
+/// converged model that adds it to the recommended terms, of the
+/// recommended law, or of any law when gravity alone is recommended).
+pub fn terms_verdict(models: &[ModelDocument]) -> Option<TermsVerdict> {
+    let r = recommended(models)?;
+    let tried: std::collections::BTreeSet<&String> =
+        models.iter().flat_map(|m| m.terms.iter()).collect();
+    if tried.is_empty() {
+        return None;
+    }
+    let justified: Vec<TermStanding> = r.terms.iter().map(|t| standing(t, r, r.bic)).collect();
+    let not_determined: Vec<TermStanding> = tried
+        .iter()
+        .filter(|t| !r.terms.contains(t))
+        .map(|t| {
+            models
+                .iter()
+                .filter(|m| m.converged && m.terms.contains(t))
+                .filter(|m| r.terms.iter().all(|x| m.terms.contains(x)))
+                .filter(|m| r.law.is_none() || m.law == r.law)
+                .min_by(|a, b| {
+                    a.terms.len().cmp(&b.terms.len()).then(
+                        a.bic
+                            .unwrap_or(f64::INFINITY)
+                            .total_cmp(&b.bic.unwrap_or(f64::INFINITY)),
+                    )
+                })
+                .map_or(
+                    TermStanding {
+                        term: t.to_string(),
+                        model: None,
+                        value: None,
+                        sigmas_from_zero: None,
+                        delta_bic: None,
+                    },
+                    |m| standing(t, m, r.bic),
+                )
+        })
+        .collect();
+    let list = |v: &[TermStanding]| v.iter().map(standing_text).collect::<Vec<_>>().join(", ");
+    let text = match (justified.is_empty(), not_determined.is_empty()) {
+        (true, _) => format!(
+            "No non-gravitational term is justified; the data leave open {}.",
+            list(&not_determined)
+        ),
+        (false, true) => format!("Justified: {}.", list(&justified)),
+        (false, false) => format!(
+            "Justified: {}. Not determined: {}.",
+            list(&justified),
+            list(&not_determined)
+        ),
+    };
+    Some(TermsVerdict {
+        justified,
+        not_determined,
+        text,
+    })
+}
+
+/// How much one sigma grew from gravity alone to the recommended model.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Growth {
+    pub gravity_sigma: f64,
+    pub model_sigma: f64,
+    /// model_sigma / gravity_sigma.
+    pub factor: f64,
+}
+
+impl Growth {
+    fn of(gravity_sigma: f64, model_sigma: f64) -> Option<Self> {
+        (gravity_sigma > 0.0 && model_sigma.is_finite()).then(|| Self {
+            gravity_sigma,
+            model_sigma,
+            factor: model_sigma / gravity_sigma,
+        })
+    }
+}
+
+/// The price of the recommended terms in uncertainty: the sigmas of q, e,
+/// the original 1/a and the place a month ahead, against gravity alone.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct CostOfHonesty {
+    pub model: String,
+    pub q_au: Option<Growth>,
+    pub e: Option<Growth>,
+    pub one_over_a_original_per_au: Option<Growth>,
+    /// Semi-major axis of the 1-sigma ellipse [`super::outlook::OUTLOOK_DAYS`]
+    /// after the arc, from the geocentre, arcsec.
+    pub place_arcsec: Option<Growth>,
+    pub place_days_after_arc: Option<f64>,
+    /// The same ellipse averaged over the models.
+    pub place_averaged_arcsec: Option<f64>,
+    pub text: String,
+}
+
+/// The cost of honesty, when the recommended model has terms and gravity
+/// alone converged.
+pub fn cost_of_honesty(
+    models: &[ModelDocument],
+    outlook: Option<&super::outlook::Outlook>,
+) -> Option<CostOfHonesty> {
+    let r = recommended(models)?;
+    if r.terms.is_empty() {
+        return None;
+    }
+    let g = models.iter().find(|m| m.terms.is_empty() && m.converged)?;
+    let element = |m: &ModelDocument, pick: fn(&super::document::ElementsDocument) -> f64| {
+        m.elements.as_ref().map(pick)
+    };
+    let growth = |pick: fn(&super::document::ElementsDocument) -> f64| {
+        Growth::of(element(g, pick)?, element(r, pick)?)
+    };
+    let q_au = growth(|e| e.q_au.sigma);
+    let e = growth(|e| e.e.sigma);
+    let one_over_a_original_per_au = g
+        .one_over_a_original
+        .as_ref()
+        .zip(r.one_over_a_original.as_ref())
+        .and_then(|(a, b)| Growth::of(a.sigma, b.sigma));
+    let place_arcsec = outlook.and_then(|o| {
+        Growth::of(
+            o.of(&g.name)?.semi_major_arcsec,
+            o.of(&r.name)?.semi_major_arcsec,
+        )
+    });
+    let mut parts = Vec::new();
+    for (name, growth) in [
+        ("q", q_au),
+        ("e", e),
+        ("original 1/a", one_over_a_original_per_au),
+    ] {
+        if let Some(x) = growth {
+            parts.push(format!("sigma of {name} x{:.1}", x.factor));
+        }
+    }
+    if let (Some(x), Some(o)) = (place_arcsec, outlook) {
+        parts.push(format!(
+            "the place {} days after the arc x{:.1} ({:.2} -> {:.2} arcsec; {:.2} averaged over the models)",
+            o.days_after_arc,
+            x.factor,
+            x.gravity_sigma,
+            x.model_sigma,
+            o.averaged.semi_major_arcsec
+        ));
+    }
+    let text = format!(
+        "The cost of the terms: against gravity alone, {} widens {}.",
+        r.name,
+        if parts.is_empty() {
+            "no uncertainty that could be compared".to_string()
+        } else {
+            parts.join(", ")
+        }
+    );
+    Some(CostOfHonesty {
+        model: r.name.clone(),
+        q_au,
+        e,
+        one_over_a_original_per_au,
+        place_arcsec,
+        place_days_after_arc: outlook.map(|o| o.days_after_arc),
+        place_averaged_arcsec: outlook.map(|o| o.averaged.semi_major_arcsec),
         text,
     })
 }

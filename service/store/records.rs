@@ -364,6 +364,13 @@ pub struct SolutionRecord {
     /// Every alert rule's state for the object after this solution.
     #[serde(default)]
     pub alert_states: RuleStates,
+    /// The nights of the coming month that would best tell the
+    /// recommended model from its strongest rival.
+    #[serde(default)]
+    pub plan: Option<crate::solve::plan::Plan>,
+    /// Why there is no plan (e.g. a single converged model).
+    #[serde(default)]
+    pub plan_problem: Option<String>,
 }
 
 /// New observations against the previous solution's prediction.

@@ -43,6 +43,8 @@ fn record(id: &str, seq: u64, inputs: u64) -> SolutionRecord {
         overrides: Vec::new(),
         alerts: Vec::new(),
         alert_states: Default::default(),
+        plan: None,
+        plan_problem: None,
     }
 }
 

@@ -246,6 +246,16 @@ pub fn refit(
             state.reference_epoch_tdb_days_j2000,
         ),
     };
+    let (plan, plan_problem) = match document.as_ref() {
+        Some(d) => match plan_ahead(ctx, d, &created_utc) {
+            Ok(p) => (Some(p), None),
+            Err(why) => {
+                tracing::info!(object = %state.id, seq, "no observing plan: {why}");
+                (None, Some(why))
+            }
+        },
+        None => (None, None),
+    };
     let facts = solution_facts(
         &ctx.solve,
         &ctx.config.stations,
@@ -301,6 +311,8 @@ pub fn refit(
         overrides,
         alerts,
         alert_states,
+        plan,
+        plan_problem,
     };
     ctx.store.add_solution(record)?;
     ctx.store.flush()?;
@@ -309,6 +321,38 @@ pub fn refit(
         ctx.outbox.notify_one();
     }
     Ok(Some(summary))
+}
+
+/// Days ahead the plan stored with each solution covers.
+pub const PLAN_DAYS: f64 = 30.0;
+
+/// The nights of the next [`PLAN_DAYS`] that would best tell the new
+/// solution's recommended model from its strongest rival, at the stations
+/// that observed the body.
+fn plan_ahead(
+    ctx: &JobContext,
+    document: &serde_json::Value,
+    created_utc: &str,
+) -> Result<crate::solve::plan::Plan, String> {
+    let from =
+        crate::astro::time::UtcTime::parse_iso8601(created_utc).map_err(|e| e.to_string())?;
+    let to = crate::astro::time::UtcTime::from_mjd_seconds(
+        from.mjd() + PLAN_DAYS as i64,
+        from.seconds_of_day(),
+    )
+    .map_err(|e| e.to_string())?;
+    crate::solve::plan::plan_stored(
+        ctx.solve.ephemeris.as_ref(),
+        &ctx.solve.scales,
+        &ctx.solve.settings,
+        &ctx.config.stations,
+        Some(document),
+        &[],
+        None,
+        &from,
+        &to,
+    )
+    .map_err(|e| e.to_string())
 }
 
 /// The observations new since the previous solution, tested against that

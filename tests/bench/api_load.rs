@@ -267,6 +267,8 @@ fn prepare(dir: &DaemonDir, binary: &Path) -> Prepared {
                 overrides: Vec::new(),
                 alerts: Vec::new(),
                 alert_states: Default::default(),
+                plan: None,
+                plan_problem: None,
             };
             let first = k == 0 && seq == 1;
             let journal_before = if first {
