@@ -6,7 +6,18 @@
 //! (H, G) law the one for an inert body; both are reported because the
 //! question of which the body is, is part of what the analyst asks.
 //! Measurements much brighter than a law are listed as departures
-//! (outburst candidates); a K1 far from the inert 5 is flagged.
+//! (outburst candidates).
+//!
+//! Activity: a K1 far from the inert 5 is flagged only when the total law
+//! is the better description of the magnitudes. The total law has no phase
+//! term, so an inert body whose phase angle changes with its distance from
+//! the Sun has that phase darkening folded into K1: the inert invented
+//! body of the fixtures (0.035 mag/deg of phase) gets K1 = -0.2, "60 sigma
+//! from 5", while the (H, G) law fits it five times better. When the
+//! (H, G) fit itself failed, it stands in with G fixed at the edges of
+//! what small bodies show and at the IAU default: if any of those
+//! describes the magnitudes as well as the total law, phase alone could
+//! explain them and the flag is withheld.
 
 use serde::Serialize;
 
@@ -14,8 +25,8 @@ use crate::astro::ephemeris::Ephemeris;
 use crate::fit::lsq::OrbitFit;
 use crate::fit::observe::AstrometricObservation;
 use crate::fit::photometry::{
-    fit_hg, fit_total_magnitude, v_offset_mag, FitSummary, GChoice, K1Choice, MagnitudeLaw,
-    MagnitudeMeasurement, PhotometryError, PhotometrySettings,
+    fit_hg, fit_total_magnitude, v_offset_mag, FitSummary, GChoice, HgFit, K1Choice, MagnitudeLaw,
+    MagnitudeMeasurement, PhotometryError, PhotometrySettings, TotalMagnitudeFit,
 };
 use crate::fit::predict::{predict_places, PredictSettings, PredictionPoint};
 
@@ -54,7 +65,9 @@ pub struct TotalLawDocument {
     /// Sigma 0 when fixed (`k1_fixed`).
     pub k1: ValueSigma,
     pub k1_fixed: bool,
-    /// K1 - 5 and its significance, when K1 is free and far from inert.
+    /// |K1 - 5| / sigma(K1), when K1 is free and far from inert and the
+    /// total law is the preferred one (see the module notes: otherwise
+    /// phase darkening alone can put K1 far from 5).
     pub activity_sigma: Option<f64>,
     #[serde(flatten)]
     pub summary: LawSummaryDocument,
@@ -86,6 +99,41 @@ pub struct BrightnessDocument {
     /// determined at all, in words: the report prints these instead of
     /// the numbers.
     pub range_flags: Vec<String>,
+    /// Whether a failure of the (H, G) fit (a problem starting with
+    /// [`HG_PROBLEM`]) bears on the answer: the total law is missing, or
+    /// an (H, G) law with a fixed G fits as well as the total law, so the
+    /// (H, G) law might have been the preferred one. The report leaves the
+    /// failure out otherwise; the JSON keeps it in `problems`.
+    #[serde(skip)]
+    pub hg_failure_matters: bool,
+}
+
+/// How every problem of the (H, G) fit begins, so that the report can
+/// tell it from the others.
+pub const HG_PROBLEM: &str = "(H, G) law: ";
+
+/// G values an inert body's phase darkening is tried with when the (H, G)
+/// fit with its own G failed: the ends of [`G_PLAUSIBLE`] (the steepest
+/// and the flattest phase curves small bodies show) and the IAU default.
+const STAND_IN_G: [f64; 3] = [
+    G_PLAUSIBLE.0,
+    crate::fit::photometry::DEFAULT_G,
+    G_PLAUSIBLE.1,
+];
+
+/// Whether an (H, G) law with a fixed G describes `data` at least as well
+/// (normalised RMS) as the total law's `total_rms`: then phase darkening
+/// alone could account for what the total law reads as K1. A stand-in
+/// that cannot be fitted is no evidence either way and counts as no.
+fn phase_alone_fits_as_well(
+    data: &[MagnitudeMeasurement],
+    total_rms: f64,
+    settings: &PhotometrySettings,
+) -> bool {
+    STAND_IN_G.iter().any(|&g| {
+        fit_hg(data, GChoice::Fixed(g), settings)
+            .is_ok_and(|h| h.summary.normalised_rms <= total_rms)
+    })
 }
 
 /// Where the slope parameter G of small bodies lies, roughly (common
@@ -100,6 +148,23 @@ pub const K1_PLAUSIBLE: (f64, f64) = (0.0, 40.0);
 /// larger than itself) or lies outside `range`, in words; None when it
 /// can be printed as a result.
 pub fn range_flag(name: &str, v: &ValueSigma, fixed: bool, range: (f64, f64)) -> Option<String> {
+    range_flag_because(
+        name,
+        v,
+        fixed,
+        range,
+        "most likely too little phase or distance coverage",
+    )
+}
+
+/// [`range_flag`] with the likeliest reason for a value out of range.
+fn range_flag_because(
+    name: &str,
+    v: &ValueSigma,
+    fixed: bool,
+    range: (f64, f64),
+    likely: &str,
+) -> Option<String> {
     if fixed {
         return None;
     }
@@ -111,17 +176,35 @@ pub fn range_flag(name: &str, v: &ValueSigma, fixed: bool, range: (f64, f64)) ->
     }
     if v.value < range.0 || v.value > range.1 {
         return Some(format!(
-            "{name} = {:.2} +/- {:.2} is outside what small bodies show ({} to {}): the fit is not physical, most likely too little phase or distance coverage",
+            "{name} = {:.2} +/- {:.2} is outside what small bodies show ({} to {}): the fit is not physical, {likely}",
             v.value, v.sigma, range.0, range.1
         ));
     }
     None
 }
 
-fn range_flags(total: Option<&TotalLawDocument>, hg: Option<&HgLawDocument>) -> Vec<String> {
+fn range_flags(
+    total: Option<&TotalLawDocument>,
+    hg: Option<&HgLawDocument>,
+    preferred: Option<&str>,
+) -> Vec<String> {
     let mut out = Vec::new();
     if let Some(t) = total {
-        out.extend(range_flag("K1", &t.k1, t.k1_fixed, K1_PLAUSIBLE));
+        // With (H, G) the better law, the likeliest reason for a K1 out of
+        // range is the phase darkening the total law has no term for.
+        let likely = if preferred == Some("hg") {
+            "most likely because the total law has no phase term and has taken up the phase \
+             darkening, which the (H, G) law describes better"
+        } else {
+            "most likely too little phase or distance coverage"
+        };
+        out.extend(range_flag_because(
+            "K1",
+            &t.k1,
+            t.k1_fixed,
+            K1_PLAUSIBLE,
+            likely,
+        ));
     }
     if let Some(h) = hg {
         out.extend(range_flag("G", &h.g, h.g_fixed, G_PLAUSIBLE));
@@ -206,6 +289,7 @@ pub fn brightness(
                 preferred: None,
                 law: None,
                 range_flags: Vec::new(),
+                hg_failure_matters: false,
             });
         }
     };
@@ -243,18 +327,12 @@ pub fn brightness(
     let hg = match fit_hg(&data, GChoice::auto(), settings) {
         Ok(h) => Some(h),
         Err(e) => {
-            problems.push(format!("(H, G) law: {e}"));
+            problems.push(format!("{HG_PROBLEM}{e}"));
             None
         }
     };
-    // The law that describes the data better (smaller normalised RMS):
-    // the total law for an active body, (H, G) for an inert one.
-    let preferred = match (&total, &hg) {
-        (Some(t), Some(h)) if h.summary.normalised_rms < t.summary.normalised_rms => Some("hg"),
-        (Some(_), _) => Some("total"),
-        (None, Some(_)) => Some("hg"),
-        (None, None) => None,
-    };
+    let judged = judge(&data, total.as_ref(), hg.as_ref(), settings);
+    let preferred = judged.preferred;
     let law = match preferred {
         Some("total") => total.as_ref().map(|t| t.law()),
         Some(_) => hg.as_ref().map(|h| h.law()),
@@ -264,7 +342,10 @@ pub fn brightness(
         m1: value_sigma(t.m1, t.covariance[(0, 0)]),
         k1: value_sigma(t.k1, t.covariance[(1, 1)]),
         k1_fixed: t.k1_fixed,
-        activity_sigma: t.activity.map(|a| a.significance_sigma),
+        activity_sigma: t
+            .activity
+            .filter(|_| judged.activity_counts)
+            .map(|a| a.significance_sigma),
         summary: law_summary(&t.summary, observations),
     });
     let hg = hg.map(|h| HgLawDocument {
@@ -275,11 +356,141 @@ pub fn brightness(
     });
     Some(BrightnessDocument {
         measurements: magnitudes.len() + unknown.len(),
-        range_flags: range_flags(total.as_ref(), hg.as_ref()),
+        range_flags: range_flags(total.as_ref(), hg.as_ref(), preferred),
         total,
         hg,
         problems,
         preferred,
         law,
+        hg_failure_matters: judged.hg_failure_matters,
     })
+}
+
+/// Which law describes the magnitudes, and what follows from it.
+#[derive(Debug, Clone, Copy, PartialEq)]
+struct Judgement {
+    /// "total" or "hg": the law with the smaller normalised RMS.
+    preferred: Option<&'static str>,
+    /// Whether a K1 far from 5 may be read as activity.
+    activity_counts: bool,
+    /// Whether a failed (H, G) fit bears on the answer.
+    hg_failure_matters: bool,
+}
+
+fn judge(
+    data: &[MagnitudeMeasurement],
+    total: Option<&TotalMagnitudeFit>,
+    hg: Option<&HgFit>,
+    settings: &PhotometrySettings,
+) -> Judgement {
+    // The law that describes the data better (smaller normalised RMS):
+    // the total law for an active body, (H, G) for an inert one.
+    let preferred = match (total, hg) {
+        (Some(t), Some(h)) if h.summary.normalised_rms < t.summary.normalised_rms => Some("hg"),
+        (Some(_), _) => Some("total"),
+        (None, Some(_)) => Some("hg"),
+        (None, None) => None,
+    };
+    // Without an (H, G) result, the stand-ins say whether phase alone
+    // could have done what the total law attributes to K1, and so whether
+    // the (H, G) law might have been preferred had it been fitted.
+    let phase_could_explain = match (total, hg) {
+        (Some(t), None) => phase_alone_fits_as_well(data, t.summary.normalised_rms, settings),
+        _ => false,
+    };
+    Judgement {
+        preferred,
+        // Activity is read off K1 only when the total law is the better
+        // description: see the module notes.
+        activity_counts: preferred == Some("total") && !phase_could_explain,
+        hg_failure_matters: hg.is_none() && (total.is_none() || phase_could_explain),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::fit::photometry::predict_mag;
+
+    /// Invented geometry of an inbound body whose phase angle grows as it
+    /// nears the Sun (r from 3.5 down to 1.2 au, phase from 5 to 45 deg):
+    /// the case where phase darkening and distance from the Sun are tied.
+    /// Not a real orbit; the laws only need the three numbers.
+    fn inbound(law: MagnitudeLaw) -> Vec<MagnitudeMeasurement> {
+        let n = 60;
+        (0..n)
+            .map(|k| {
+                let t = k as f64 / (n - 1) as f64;
+                let r_au = 3.5 - 2.3 * t;
+                let delta_au = 2.6 - 1.8 * t + 0.1 * (9.0 * t).sin();
+                let phase_rad = (5.0 + 40.0 * t).to_radians();
+                // A small deterministic scatter, 0.05 mag at most, so the
+                // fits have residuals to judge.
+                let scatter = 0.05 * (12.9 * k as f64).sin();
+                MagnitudeMeasurement {
+                    index: k,
+                    mag: predict_mag(law, r_au, delta_au, phase_rad) + scatter,
+                    band: Some("V".into()),
+                    sigma_mag: Some(0.1),
+                    r_au,
+                    delta_au,
+                    phase_rad,
+                }
+            })
+            .collect()
+    }
+
+    fn fits(
+        data: &[MagnitudeMeasurement],
+        settings: &PhotometrySettings,
+    ) -> (TotalMagnitudeFit, Result<HgFit, PhotometryError>) {
+        let total = fit_total_magnitude(data, K1Choice::Free, settings).expect("the total law");
+        (total, fit_hg(data, GChoice::auto(), settings))
+    }
+
+    /// An inert body (H = 16, G = 0.15: the IAU default of Bowell et al.
+    /// 1989) seen at a phase angle that grows as it nears the Sun: the
+    /// total law, which has no phase term, reads the phase darkening as a
+    /// K1 far from 5, and photometry.rs flags it. The flag must not reach
+    /// the document, with the (H, G) fit or without it.
+    #[test]
+    fn phase_darkening_is_not_read_as_activity() {
+        let settings = PhotometrySettings::default();
+        let data = inbound(MagnitudeLaw::Hg { h: 16.0, g: 0.15 });
+        let (total, hg) = fits(&data, &settings);
+        let hg = hg.expect("the (H, G) law fits the body it made");
+        assert!(
+            total.activity.is_some(),
+            "the premise: K1 = {} is flagged by the total law alone",
+            total.k1
+        );
+        let j = judge(&data, Some(&total), Some(&hg), &settings);
+        assert_eq!(j.preferred, Some("hg"));
+        assert!(!j.activity_counts);
+        // The (H, G) fit failed: its stand-ins with a fixed G fit as well,
+        // so the flag is withheld and the failure is worth a note.
+        let j = judge(&data, Some(&total), None, &settings);
+        assert_eq!(j.preferred, Some("total"));
+        assert!(!j.activity_counts);
+        assert!(j.hg_failure_matters);
+    }
+
+    /// An active body (K1 = 10, the fixtures' law; M1 = 12.5) on the same
+    /// path: the total law fits best, the flag stands, and the failure of
+    /// the (H, G) fit (G runs off, as on the fixtures) is not worth a note.
+    #[test]
+    fn a_steep_brightening_is_read_as_activity() {
+        let settings = PhotometrySettings::default();
+        let data = inbound(MagnitudeLaw::Total { m1: 12.5, k1: 10.0 });
+        let (total, hg) = fits(&data, &settings);
+        assert!(total.activity.is_some(), "K1 = {}", total.k1);
+        let j = judge(&data, Some(&total), hg.as_ref().ok(), &settings);
+        assert_eq!(j.preferred, Some("total"));
+        assert!(j.activity_counts);
+        let j = judge(&data, Some(&total), None, &settings);
+        assert!(j.activity_counts);
+        assert!(!j.hg_failure_matters);
+        // Only the (H, G) law was tried, and it failed: that matters.
+        assert!(judge(&data, None, None, &settings).hg_failure_matters);
+    }
 }

@@ -11,6 +11,7 @@
 //! - [`document`]: a solution as the JSON document the commands and the API
 //!   return.
 //! - [`report`]: the same solution as text for a person.
+//! - [`numbers`]: values rounded to their sigma, never a negative zero.
 //! - [`prediction`]: the time grid of a prediction request, a model's
 //!   places with the model average beside them, as a JSON document and
 //!   tables.
@@ -32,6 +33,7 @@ pub mod brightness;
 pub mod catalog_bias;
 pub mod document;
 pub mod input;
+pub mod numbers;
 pub mod outlook;
 pub mod plan;
 pub mod prediction;

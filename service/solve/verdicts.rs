@@ -185,7 +185,7 @@ pub fn law_verdict(models: &[ModelDocument]) -> Option<LawVerdict> {
                 let values: Vec<String> = f
                     .nongrav
                     .iter()
-                    .map(|(k, v)| format!("{k} = {:.3e} +/- {:.1e}", v.value, v.sigma))
+                    .map(|(k, v)| format!("{k} = {}", value_with_sigma(*v)))
                     .collect();
                 format!(
                     "{} (dBIC {:+.1}): {}",
@@ -516,24 +516,10 @@ pub fn cost_of_honesty(
     })
 }
 
-/// A value and its sigma, both to two significant figures of the sigma;
-/// small numbers in a shared power of ten.
+/// A value and its sigma as the report prints them
+/// ([`super::numbers::rounded`]).
 pub fn value_with_sigma(v: ValueSigma) -> String {
-    if !(v.sigma.is_finite() && v.sigma > 0.0) {
-        return format!("{:.6}", v.value);
-    }
-    let exponent = v.sigma.log10().floor() as i32;
-    if exponent < -3 && v.value.abs() < 1e-2 {
-        let scale = 10f64.powi(exponent);
-        format!(
-            "({:.1} +/- {:.1})e{exponent}",
-            v.value / scale,
-            v.sigma / scale
-        )
-    } else {
-        let decimals = (1 - exponent).max(0) as usize;
-        format!("{:.*} +/- {:.*}", decimals, v.value, decimals, v.sigma)
-    }
+    super::numbers::rounded(v.value, v.sigma)
 }
 
 #[cfg(test)]
