@@ -453,3 +453,72 @@ fn a_two_night_arc_gets_a_verdict_that_holds_back() {
         "{report}"
     );
 }
+
+/// The outgassing fixture's first four days with every stated sigma cut
+/// to a tenth: residuals about ten times the stated uncertainties, a fit
+/// no model can call good. The verdict refuses (the rule:
+/// normalised RMS above 1.5 for every model) and never says gravity alone
+/// explains the data.
+#[test]
+fn a_four_day_arc_with_a_poor_fit_gets_a_refusing_verdict() {
+    let text = std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join(OUTGASSING))
+        .expect("the fixture");
+    let mut header = None;
+    let mut first_day: Option<String> = None;
+    let mut kept = Vec::new();
+    for line in text.lines() {
+        let fields: Vec<&str> = line.split('|').collect();
+        if line.starts_with("provID") {
+            header = Some(
+                fields
+                    .iter()
+                    .map(|f| f.trim().to_string())
+                    .collect::<Vec<_>>(),
+            );
+            kept.push(line.to_string());
+            continue;
+        }
+        let Some(names) = &header else {
+            kept.push(line.to_string());
+            continue;
+        };
+        let column = |name: &str| names.iter().position(|n| n == name).expect("a column");
+        let time = fields[column("obsTime")].trim();
+        let day = &time[..10];
+        let first = first_day.get_or_insert_with(|| day.to_string());
+        // ISO dates compare as text; four days from the first.
+        let last_day = {
+            let (y, m, d): (i32, u32, u32) = (
+                first[..4].parse().unwrap(),
+                first[5..7].parse().unwrap(),
+                first[8..10].parse().unwrap(),
+            );
+            format!("{y:04}-{m:02}-{:02}", d + 4)
+        };
+        if day.as_bytes() > last_day.as_bytes() {
+            continue;
+        }
+        let mut out: Vec<String> = fields.iter().map(|f| f.to_string()).collect();
+        for name in ["rmsRA", "rmsDec"] {
+            let k = column(name);
+            let sigma: f64 = out[k].trim().parse().expect("a stated sigma");
+            out[k] = format!("{:.3}", sigma / 10.0);
+        }
+        kept.push(out.join("|"));
+    }
+    let dir = tempfile::tempdir().expect("a temporary directory");
+    let file = dir.path().join("four-days.psv");
+    std::fs::write(&file, kept.join("\n") + "\n").expect("the file is written");
+    let out = perihelix(&["fit", "--no-distant", file.to_str().expect("a UTF-8 path")]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    let report = String::from_utf8_lossy(&out.stdout);
+    let verdict = report.lines().nth(1).unwrap_or_default();
+    assert!(
+        verdict.contains("No model of the ladder explains the data"),
+        "{report}"
+    );
+    assert!(
+        !report.contains("Gravity alone explains the data"),
+        "{report}"
+    );
+}

@@ -16,7 +16,7 @@
 //! falls short, no number of such nights is enough: the models' ellipses
 //! overlap there, and the answer is to wait for them to move apart.
 
-use nalgebra::{Matrix2, Vector2};
+use nalgebra::{DMatrix, DVector, Matrix2, Vector2};
 
 /// The sigma level taken as settled (common practice).
 pub const SETTLED_SIGMA: f64 = 3.0;
@@ -64,6 +64,30 @@ pub fn nights_to_settle(
     Some(high)
 }
 
+/// For nested models (the richer one adds terms A to the other), the
+/// test statistic of those terms after one more tracklet: the richer
+/// fit's covariance updated by the tracklet (the linear Kalman update
+/// C' = C - G (Sigma + S)^-1 G^T restricted to A, with G = cov(A, place)
+/// and Sigma the place's covariance under the richer model), then
+/// a^T C'_AA^-1 a. It is the criterion for discriminating nested models
+/// (Atkinson & Fedorov 1975, Biometrika 62, 57: the expected lack of fit
+/// of the simpler model): where the terms are poorly known, the place
+/// split d and the richer model's ellipse grow together and D^2 stays
+/// flat, while this still says which night teaches most about A.
+pub fn terms_statistic_after(
+    a: &DVector<f64>,
+    c_aa: &DMatrix<f64>,
+    g: &DMatrix<f64>,
+    sigma: &Matrix2<f64>,
+    s: &Matrix2<f64>,
+) -> Option<f64> {
+    let inverse = (sigma + s).try_inverse()?;
+    let inverse = DMatrix::from_fn(2, 2, |i, j| inverse[(i, j)]);
+    let updated = c_aa - g * inverse * g.transpose();
+    let information = updated.try_inverse()?;
+    Some((a.transpose() * information * a)[(0, 0)])
+}
+
 /// The noise of one night's tracklet: `observations` measurements of
 /// `sigma_arcsec` each, round and independent.
 pub fn tracklet_noise(sigma_arcsec: f64, observations: usize) -> Matrix2<f64> {
@@ -100,6 +124,25 @@ mod tests {
         // Far apart: one night is enough.
         let far = Vector2::new(0.0, 10.0);
         assert_eq!(nights_to_settle(&far, &c, &c, &s), Some(1));
+    }
+
+    #[test]
+    fn a_tracklet_that_measures_the_term_halves_its_variance() {
+        // The place's RA offset is the term itself (unit slope), known to
+        // sigma 1; a tracklet with noise 1 along it: two equal measurements
+        // halve the variance (inverse-variance weighting, textbook), so
+        // a = 1 goes from 1 to 2 in a^T C^-1 a. Dec carries nothing.
+        let a = DVector::from_element(1, 1.0);
+        let c = DMatrix::from_element(1, 1, 1.0);
+        let g = DMatrix::from_row_slice(1, 2, &[1.0, 0.0]);
+        let sigma = Matrix2::new(1.0, 0.0, 0.0, 4.0);
+        let s = Matrix2::identity();
+        let after = terms_statistic_after(&a, &c, &g, &sigma, &s).unwrap();
+        assert!((after - 2.0).abs() < 1e-12, "{after}");
+        // A place that does not depend on the term teaches nothing.
+        let none = DMatrix::from_row_slice(1, 2, &[0.0, 0.0]);
+        let after = terms_statistic_after(&a, &c, &none, &sigma, &s).unwrap();
+        assert!((after - 1.0).abs() < 1e-12, "{after}");
     }
 
     #[test]

@@ -297,6 +297,7 @@ mod tests {
             magnitude: None,
             ellipse: SkyEllipse::from_covariance(c),
             ellipse_source: source,
+            parameter_place_cov: None,
         }
     }
 

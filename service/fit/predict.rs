@@ -200,6 +200,10 @@ pub struct PlacePrediction {
     pub magnitude: Option<f64>,
     pub ellipse: SkyEllipse,
     pub ellipse_source: EllipseSource,
+    /// Linear method only: the covariance of each fitted parameter with
+    /// the place, C B^T (n x 2, parameter units times arcsec): what an
+    /// observation of this place would teach about each parameter.
+    pub parameter_place_cov: Option<nalgebra::DMatrix<f64>>,
 }
 
 impl PlacePrediction {
@@ -335,9 +339,13 @@ pub fn predict_places(
             elongation_and_phase(&body, &p.rho_au, &(sun - at.state.position_au));
         let delta_au = p.rho_au.norm();
         let r_au = body.norm();
-        let ellipse = match &p.partials_arcsec {
-            Some(b) => {
-                let c = b * covariance * b.transpose();
+        let parameter_place_cov = p
+            .partials_arcsec
+            .as_ref()
+            .map(|b| covariance * b.transpose());
+        let ellipse = match (&p.partials_arcsec, &parameter_place_cov) {
+            (Some(b), Some(cb)) => {
+                let c = b * cb;
                 SkyEllipse::from_covariance(Matrix2::new(
                     c[(0, 0)],
                     c[(0, 1)],
@@ -346,7 +354,7 @@ pub fn predict_places(
                 ))
             }
             // Filled in by the Monte Carlo below.
-            None => SkyEllipse::from_covariance(Matrix2::zeros()),
+            _ => SkyEllipse::from_covariance(Matrix2::zeros()),
         };
         places.push(PlacePrediction {
             time: point.time,
@@ -363,6 +371,7 @@ pub fn predict_places(
                 .map(|law| predict_mag(law, r_au, delta_au, phase_rad)),
             ellipse,
             ellipse_source: EllipseSource::Linear,
+            parameter_place_cov,
         });
     }
 

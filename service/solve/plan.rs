@@ -8,13 +8,17 @@
 //! differential refraction spoil it). The nights are sampled every
 //! `step_minutes`; each night is judged at its best sample.
 //!
-//! The rival is the other converged model with the lowest BIC (the one
-//! the data have least excluded): gravity alone against the terms, one
-//! law against the other, or a term more or fewer.
+//! The rivals: every other converged model, weighted by exp(-dBIC/2) among
+//! them, and a night is ranked by the weighted mean of its D^2 against
+//! each (Box & Hill's criterion weighs the rival pairs by their
+//! probabilities in the same way). One rival alone would mislead where the
+//! data cannot choose: with nothing detected, A1 and A2 sit within noise
+//! of each other in BIC, and planning against whichever is ahead by luck
+//! can pick nights that settle a term the body does not have.
 
 use std::collections::BTreeMap;
 
-use nalgebra::{Matrix2, Vector3};
+use nalgebra::{DMatrix, DVector, Matrix2, Vector2, Vector3};
 use serde::{Deserialize, Serialize};
 use thiserror::Error;
 
@@ -23,9 +27,12 @@ use crate::astro::observer::{
     altitude_rad, observer_barycentric_state, zenith_gcrs, ObserverPosition,
 };
 use crate::astro::time::{ScaledInstant, TimeScales, UtcTime};
-use crate::fit::discriminate::{discrimination2, nights_to_settle, tracklet_noise};
+use crate::fit::discriminate::{
+    discrimination2, nights_to_settle, terms_statistic_after, tracklet_noise,
+};
 use crate::fit::lsq::OrbitFit;
-use crate::fit::predict::{predict_places, PredictSettings, PredictionPoint};
+use crate::fit::mixture::{bic_weights, NEGLIGIBLE_DELTA_BIC};
+use crate::fit::predict::{predict_places, PredictSettings, PredictionPoint, SkyEllipse};
 
 use serde_json::Value;
 
@@ -94,12 +101,15 @@ pub struct PlanNight {
     pub ra_deg: f64,
     pub dec_deg: f64,
     pub altitude_deg: f64,
-    /// |a - b| between the two models' places.
+    /// sqrt of the rivals' weighted mean D^2: the ranking.
+    pub expected_sigma: f64,
+    /// Against the heaviest rival: |a - b| between the two models'
+    /// places...
     pub separation_arcsec: f64,
-    /// sqrt(D^2): the split in sigmas one tracklet there would show.
+    /// ...sqrt(D^2), the split in sigmas one tracklet there would show...
     pub separation_sigma: f64,
-    /// Nights like this one needed for 3 sigma; None when no number is
-    /// enough (the models' own ellipses overlap there).
+    /// ...and the nights like this one needed for 3 sigma; None when no
+    /// number is enough (the models' own ellipses overlap there).
     pub nights_to_3_sigma: Option<u32>,
     pub model_sigma_arcsec: f64,
     pub rival_sigma_arcsec: f64,
@@ -112,40 +122,77 @@ pub struct StationWithout {
     pub reason: String,
 }
 
+/// A rival and its weight among the rivals.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct RivalShare {
+    pub model: String,
+    pub weight: f64,
+}
+
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Plan {
     pub model: String,
+    /// The heaviest rival: the `separation_*` figures are against it.
     pub rival: String,
+    /// Every rival the ranking weighs, heaviest first.
+    pub rivals: Vec<RivalShare>,
     pub from_utc: String,
     pub to_utc: String,
     pub sun_below_deg: f64,
     pub body_above_deg: f64,
     pub tracklet_observations: usize,
     pub step_minutes: f64,
-    /// Best first: by separation in sigmas.
+    /// Best first: by the expected separation over the rivals.
     pub nights: Vec<PlanNight>,
     pub stations_without_nights: Vec<StationWithout>,
 }
 
-/// The strongest rival of `model` among converged candidates with a
-/// covariance: the lowest BIC of the others.
-pub fn strongest_rival<'a>(
+/// The rivals of `model` among converged candidates with a covariance,
+/// each weighted by exp(-dBIC/2) among them (normalised), heaviest first;
+/// those more than [`NEGLIGIBLE_DELTA_BIC`] above the best rival carry no
+/// weight worth a prediction and are left out.
+pub fn rivals_of<'a>(
     candidates: &'a [(String, Option<f64>, &'a OrbitFit)],
     model: &str,
-) -> Option<&'a (String, Option<f64>, &'a OrbitFit)> {
-    candidates
+) -> Vec<Rival<'a>> {
+    let others: Vec<&(String, Option<f64>, &OrbitFit)> = candidates
         .iter()
         .filter(|(name, bic, fit)| {
             name != model && fit.covariance.is_some() && bic.is_some_and(f64::is_finite)
         })
-        .min_by(|a, b| {
-            a.1.unwrap_or(f64::INFINITY)
-                .total_cmp(&b.1.unwrap_or(f64::INFINITY))
+        .collect();
+    let best = others
+        .iter()
+        .filter_map(|c| c.1)
+        .fold(f64::INFINITY, f64::min);
+    let kept: Vec<&(String, Option<f64>, &OrbitFit)> = others
+        .into_iter()
+        .filter(|c| c.1.is_some_and(|b| b - best <= NEGLIGIBLE_DELTA_BIC))
+        .collect();
+    let weights = bic_weights(&kept.iter().map(|c| c.1).collect::<Vec<_>>());
+    let mut rivals: Vec<Rival> = kept
+        .into_iter()
+        .zip(weights)
+        .map(|(c, weight)| Rival {
+            name: &c.0,
+            weight,
+            fit: c.2,
         })
+        .collect();
+    rivals.sort_by(|a, b| b.weight.total_cmp(&a.weight));
+    rivals
+}
+
+/// A rival model with its share of the plausibility among the rivals.
+#[derive(Debug, Clone, Copy)]
+pub struct Rival<'a> {
+    pub name: &'a str,
+    pub weight: f64,
+    pub fit: &'a OrbitFit,
 }
 
 /// The plan of `model` against `rival` (by name) or, when None, against
-/// its strongest rival, from the converged candidates.
+/// every plausible rival, from the converged candidates.
 #[allow(clippy::too_many_arguments)]
 pub fn plan_among(
     ephemeris: &dyn Ephemeris,
@@ -172,16 +219,25 @@ pub fn plan_among(
             })
     };
     let chosen = find(model)?;
-    let other = match rival {
-        Some(r) => find(r)?,
-        None => strongest_rival(candidates, model)
-            .ok_or_else(|| PlanError::NoRival(model.to_string()))?,
+    let rivals = match rival {
+        Some(r) => {
+            let other = find(r)?;
+            vec![Rival {
+                name: &other.0,
+                weight: 1.0,
+                fit: other.2,
+            }]
+        }
+        None => rivals_of(candidates, model),
     };
+    if rivals.is_empty() {
+        return Err(PlanError::NoRival(model.to_string()));
+    }
     plan(
         ephemeris,
         scales,
         (&chosen.0, chosen.2),
-        (&other.0, other.2),
+        &rivals,
         stations,
         from,
         to,
@@ -327,7 +383,7 @@ pub fn plan(
     ephemeris: &dyn Ephemeris,
     scales: &TimeScales,
     model: (&str, &OrbitFit),
-    rival: (&str, &OrbitFit),
+    rivals: &[Rival],
     stations: &[PlanStation],
     from: &UtcTime,
     to: &UtcTime,
@@ -342,7 +398,7 @@ pub fn plan(
     let mut nights = Vec::new();
     let mut without = Vec::new();
     for station in stations {
-        let found = station_nights(ephemeris, model, rival, station, &times, settings)?;
+        let found = station_nights(ephemeris, model, rivals, station, &times, settings)?;
         if found.is_empty() {
             without.push(StationWithout {
                 station: station.code.clone(),
@@ -353,10 +409,17 @@ pub fn plan(
         }
         nights.extend(found);
     }
-    nights.sort_by(|a, b| b.separation_sigma.total_cmp(&a.separation_sigma));
+    nights.sort_by(|a, b| b.expected_sigma.total_cmp(&a.expected_sigma));
     Ok(Plan {
         model: model.0.to_string(),
-        rival: rival.0.to_string(),
+        rival: rivals.first().map_or(String::new(), |r| r.name.to_string()),
+        rivals: rivals
+            .iter()
+            .map(|r| RivalShare {
+                model: r.name.to_string(),
+                weight: r.weight,
+            })
+            .collect(),
         from_utc: from.to_iso8601(0),
         to_utc: to.to_iso8601(0),
         sun_below_deg: SUN_BELOW_DEG,
@@ -368,10 +431,74 @@ pub fn plan(
     })
 }
 
+/// A rival's split from the model at one sample: the offset of its place
+/// (arcsec), its place's covariance, and D^2.
+type Split = (Vector2<f64>, Matrix2<f64>, f64);
+
+/// How a rival's terms relate to the model's.
+enum Nesting {
+    /// The rival has the model's terms and more (same law, or the model
+    /// is gravity alone): the rival's parameter indices of the extra ones.
+    RivalAdds(Vec<usize>),
+    /// The model has the rival's terms and more.
+    ModelAdds(Vec<usize>),
+    /// Neither holds the other (another law, or other terms).
+    Apart,
+}
+
+fn nesting(model: &OrbitFit, rival: &OrbitFit) -> Nesting {
+    let terms =
+        |f: &OrbitFit| -> Vec<usize> { f.nongrav_au_per_day2.iter().map(|(c, _)| *c).collect() };
+    let law = |f: &OrbitFit| {
+        f.model
+            .nongrav()
+            .filter(|n| n.free.count() > 0)
+            .map(|n| n.law)
+    };
+    // The extra terms' parameter indices in `richer` (6 + their place
+    // among its A_i), when `richer` strictly holds `poorer`.
+    let extra = |poorer: &OrbitFit, richer: &OrbitFit| -> Option<Vec<usize>> {
+        let (p, r) = (terms(poorer), terms(richer));
+        let same_family = p.is_empty() || law(poorer) == law(richer);
+        let holds = p.iter().all(|c| r.contains(c)) && r.len() > p.len();
+        (same_family && holds).then(|| {
+            r.iter()
+                .enumerate()
+                .filter(|(_, c)| !p.contains(c))
+                .map(|(j, _)| 6 + j)
+                .collect()
+        })
+    };
+    if let Some(e) = extra(model, rival) {
+        Nesting::RivalAdds(e)
+    } else if let Some(e) = extra(rival, model) {
+        Nesting::ModelAdds(e)
+    } else {
+        Nesting::Apart
+    }
+}
+
+/// The test statistic of `richer`'s `extra` terms after a tracklet at
+/// `place` (predicted by `richer`, linear method).
+fn terms_after(
+    richer: &OrbitFit,
+    extra: &[usize],
+    place: &crate::fit::predict::PlacePrediction,
+    noise: &Matrix2<f64>,
+) -> Option<f64> {
+    let c = richer.covariance.as_ref()?;
+    let g = place.parameter_place_cov.as_ref()?;
+    let k = extra.len();
+    let a = DVector::from_iterator(k, extra.iter().map(|&i| richer.parameters[i]));
+    let c_aa = DMatrix::from_fn(k, k, |i, j| c[(extra[i], extra[j])]);
+    let g_a = DMatrix::from_fn(k, 2, |i, j| g[(extra[i], j)]);
+    terms_statistic_after(&a, &c_aa, &g_a, &place.ellipse.covariance_arcsec2, noise)
+}
+
 fn station_nights(
     ephemeris: &dyn Ephemeris,
     model: (&str, &OrbitFit),
-    rival: (&str, &OrbitFit),
+    rivals: &[Rival],
     station: &PlanStation,
     times: &[ScaledInstant],
     settings: &PredictSettings,
@@ -407,23 +534,49 @@ fn station_nights(
         .collect();
     let a = predict_places(ephemeris, model.1, &points, settings)
         .map_err(|e| fail(format!("{}: {e}", model.0)))?;
-    let b = predict_places(ephemeris, rival.1, &points, settings)
-        .map_err(|e| fail(format!("{}: {e}", rival.0)))?;
+    let others = rivals
+        .iter()
+        .map(|r| {
+            predict_places(ephemeris, r.fit, &points, settings)
+                .map_err(|e| fail(format!("{}: {e}", r.name)))
+        })
+        .collect::<Result<Vec<_>, _>>()?;
     let noise = tracklet_noise(station.sigma_arcsec, TRACKLET_OBSERVATIONS);
     let longitude = east_longitude_deg(&station.position);
     // Per night: the best sample and the count of good ones.
-    let mut by_night: BTreeMap<String, (PlanNight, f64, usize)> = BTreeMap::new();
-    for ((time, zenith), (pa, pb)) in dark.iter().zip(a.iter().zip(&b)) {
+    let mut by_night: BTreeMap<String, (PlanNight, usize)> = BTreeMap::new();
+    for (k, ((time, zenith), pa)) in dark.iter().zip(&a).enumerate() {
         let altitude = altitude_rad(zenith, &unit(pa.ra_rad, pa.dec_rad)).to_degrees();
         if altitude < BODY_ABOVE_DEG {
             continue;
         }
-        let d = pa.offset_arcsec(pb.ra_rad, pb.dec_rad);
-        let (ca, cb): (Matrix2<f64>, Matrix2<f64>) =
-            (pa.ellipse.covariance_arcsec2, pb.ellipse.covariance_arcsec2);
-        let Some(d2) = discrimination2(&d, &ca, &cb, &noise) else {
+        let ca: Matrix2<f64> = pa.ellipse.covariance_arcsec2;
+        // Each rival's split here and its score; the weighted mean score
+        // ranks the night.
+        let splits: Vec<Option<Split>> = others
+            .iter()
+            .map(|places| {
+                let pb = &places[k];
+                let d = pa.offset_arcsec(pb.ra_rad, pb.dec_rad);
+                let cb = pb.ellipse.covariance_arcsec2;
+                discrimination2(&d, &ca, &cb, &noise).map(|d2| (d, cb, d2))
+            })
+            .collect();
+        let Some(Some((d, cb, d2))) = splits.first().copied() else {
             continue;
         };
+        let expected2: f64 = splits
+            .iter()
+            .zip(rivals.iter().zip(&others))
+            .map(|(split, (r, places))| {
+                let score = match nesting(model.1, r.fit) {
+                    Nesting::RivalAdds(extra) => terms_after(r.fit, &extra, &places[k], &noise),
+                    Nesting::ModelAdds(extra) => terms_after(model.1, &extra, pa, &noise),
+                    Nesting::Apart => None,
+                };
+                r.weight * score.or(split.map(|(_, _, d2)| d2)).unwrap_or(0.0)
+            })
+            .sum();
         let night = PlanNight {
             station: station.code.clone(),
             night: night_label(time, longitude),
@@ -432,24 +585,24 @@ fn station_nights(
             ra_deg: pa.ra_rad.to_degrees(),
             dec_deg: pa.dec_rad.to_degrees(),
             altitude_deg: altitude,
+            expected_sigma: expected2.sqrt(),
             separation_arcsec: d.norm(),
             separation_sigma: d2.sqrt(),
             nights_to_3_sigma: nights_to_settle(&d, &ca, &cb, &noise),
             model_sigma_arcsec: pa.ellipse.semi_major_arcsec,
-            rival_sigma_arcsec: pb.ellipse.semi_major_arcsec,
+            rival_sigma_arcsec: SkyEllipse::from_covariance(cb).semi_major_arcsec,
         };
         let entry = by_night
             .entry(night.night.clone())
-            .or_insert_with(|| (night.clone(), d2, 0));
-        entry.2 += 1;
-        if d2 > entry.1 {
+            .or_insert_with(|| (night.clone(), 0));
+        entry.1 += 1;
+        if night.expected_sigma > entry.0.expected_sigma {
             entry.0 = night;
-            entry.1 = d2;
         }
     }
     Ok(by_night
         .into_values()
-        .map(|(mut night, _, samples)| {
+        .map(|(mut night, samples)| {
             night.observable_hours = samples as f64 * STEP_MINUTES / 60.0;
             night
         })
@@ -461,15 +614,21 @@ impl Plan {
     pub fn text(&self) -> String {
         use std::fmt::Write;
         let mut out = String::new();
+        let rivals: Vec<String> = self
+            .rivals
+            .iter()
+            .map(|r| format!("{} {:.0}%", r.model, 100.0 * r.weight))
+            .collect();
         let _ = writeln!(
             out,
-            "Nights that would tell {} from {}, {} to {}\n\
+            "Nights that would tell {} from its rivals, {} to {}\n\
+             rivals, weighted by how well they fit (exp(-dBIC/2)): {}\n\
              (dark: Sun below {} deg; the body above {} deg; one tracklet of {} observations \
              at the station's astrometric sigma; sampled every {} minutes)\n",
             self.model,
-            self.rival,
             self.from_utc,
             self.to_utc,
+            rivals.join(", "),
             self.sun_below_deg,
             self.body_above_deg,
             self.tracklet_observations,
@@ -480,30 +639,32 @@ impl Plan {
         } else {
             let _ = writeln!(
                 out,
-                "{:<8} {:<10} {:<20} {:>6} {:>9} {:>10} {:>10} {:>12}",
+                "{:<8} {:<10} {:<20} {:>6} {:>9} {:>10} {:>10} {:>10} {:>10}",
                 "station",
                 "night of",
                 "best time (UTC)",
                 "hours",
                 "altitude",
-                "split (\")",
+                "expected",
+                "split from",
                 "split in",
                 "nights to"
             );
             let _ = writeln!(
                 out,
-                "{:<8} {:<10} {:<20} {:>6} {:>9} {:>10} {:>10} {:>12}",
-                "", "", "", "dark", "(deg)", "", "sigmas", "3 sigma"
+                "{:<8} {:<10} {:<20} {:>6} {:>9} {:>10} {:>10} {:>10} {:>10}",
+                "", "", "", "dark", "(deg)", "sigmas", "rival (\")", "sigmas", "3 sigma"
             );
             for n in self.nights.iter().take(NIGHTS_SHOWN) {
                 let _ = writeln!(
                     out,
-                    "{:<8} {:<10} {:<20} {:>6.1} {:>9.0} {:>10.3} {:>10.2} {:>12}",
+                    "{:<8} {:<10} {:<20} {:>6.1} {:>9.0} {:>10.2} {:>10.3} {:>10.2} {:>10}",
                     n.station,
                     n.night,
                     n.utc,
                     n.observable_hours,
                     n.altitude_deg,
+                    n.expected_sigma,
                     n.separation_arcsec,
                     n.separation_sigma,
                     n.nights_to_3_sigma
@@ -517,9 +678,13 @@ impl Plan {
                     self.nights.len() - NIGHTS_SHOWN
                 );
             }
-            out.push_str(
-                "\n\"not enough\": the two models' own uncertainties overlap there, so more \
-                 nights of that geometry cannot settle it.\n",
+            let _ = writeln!(
+                out,
+                "\nexpected sigmas: the split one tracklet would show, averaged over the rivals by \
+                 weight (the ranking). The split columns are against the heaviest rival, {}; \
+                 \"not enough\": the two models' own uncertainties overlap there, so more nights \
+                 of that geometry cannot settle it.",
+                self.rival
             );
         }
         for s in &self.stations_without_nights {

@@ -24,6 +24,11 @@ pub const NO_MODEL_NORMALIZED_RMS: f64 = 1.5;
 pub const NO_MODEL_P_VALUE: f64 = 1e-6;
 /// More than this share of the observations rejected is worth a warning.
 pub const REJECTED_SHARE_WARNING: f64 = 0.10;
+/// More than this share rejected and the fit no longer speaks for the
+/// data: the kept observations are a minority, past the 50% breakdown
+/// point no estimator can exceed (Rousseeuw 1984, J. Am. Stat. Assoc.
+/// 79, 871).
+pub const REJECTED_SHARE_NO_MODEL: f64 = 0.5;
 /// Fewer nights than this cannot decide on non-gravitational terms.
 pub const MIN_NIGHTS_FOR_NG: usize = 3;
 
@@ -82,6 +87,14 @@ pub fn refusals(models: &[ModelDocument], observations: usize, nights: usize) ->
     }
     if let Some(r) = models.iter().find(|m| m.recommended && m.converged) {
         let share = r.rejected.len() as f64 / observations.max(1) as f64;
+        if share > REJECTED_SHARE_NO_MODEL && out.no_model_explains.is_none() {
+            out.no_model_explains = Some(format!(
+                "No model of the ladder explains the data: the fits keep only {} of {observations} \
+                 observations ({:.0}% rejected), a minority that cannot speak for the rest.",
+                observations - r.rejected.len().min(observations),
+                100.0 * share
+            ));
+        }
         if share > REJECTED_SHARE_WARNING {
             out.many_rejected = Some(format!(
                 "Warning: {} of {observations} observations ({:.0}%) were rejected as outliers; \
@@ -672,6 +685,34 @@ mod tests {
         // No non-gravitational fit converged: it cannot say.
         a1.converged = false;
         assert!(refusals(&[g, a1], 120, 12).arc_too_short.is_some());
+    }
+
+    /// A fit that looks good only because it threw most of the data away
+    /// (the 50% limit: Rousseeuw 1984's breakdown point; the case is made
+    /// up around it).
+    #[test]
+    fn a_fit_of_a_kept_minority_explains_nothing() {
+        let mut g = model("gravity", &[], None, 100.0, (1e-5, 1e-6));
+        g.recommended = true;
+        g.normalized_rms = Some(1.1);
+        let reject = |n: usize| {
+            (0..n)
+                .map(|k| crate::solve::document::RejectedDocument {
+                    obs_time: format!("2026-01-01T00:{k:02}:00Z"),
+                    station: "ZQA".into(),
+                    chi2: 80.0,
+                })
+                .collect()
+        };
+        g.rejected = reject(70);
+        let r = refusals(std::slice::from_ref(&g), 120, 4);
+        let why = r.no_model_explains.expect("a refusal");
+        assert!(why.contains("keep only 50 of 120"), "{why}");
+        // Half kept is still the data's majority: a warning only.
+        g.rejected = reject(60);
+        let r = refusals(&[g], 120, 4);
+        assert!(r.no_model_explains.is_none());
+        assert!(r.many_rejected.is_some());
     }
 
     #[test]

@@ -7,6 +7,7 @@
 
 pub mod comet;
 pub mod daemon;
+pub mod prediction;
 pub mod smtp;
 pub mod stress;
 pub mod webhook;
