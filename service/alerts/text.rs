@@ -388,13 +388,15 @@ mod tests {
     use super::*;
     use crate::solve::document::ValueSigma;
 
-    /// Two significant figures of the sigma, by construction (the rule of
-    /// the house; the digits are arithmetic, not from a source).
+    /// The alerts round as the report does (`solve::numbers::rounded`):
+    /// two significant figures of the sigma, the value to the same place,
+    /// small numbers in a shared power of ten taken from the larger (the
+    /// ISO GUM's common practice; the digits are worked by hand).
     #[test]
     fn values_carry_two_figures_of_their_sigma() {
         let vs = |value, sigma| value_sigma(ValueSigma { value, sigma });
         assert_eq!(vs(1.001_32, 0.000_012), "1.001320 +/- 0.000012");
-        assert_eq!(vs(2.1e-8, 3.4e-9), "(21.0 +/- 3.4)e-9");
+        assert_eq!(vs(2.1e-8, 3.4e-9), "(2.10 +/- 0.34)e-8");
         assert_eq!(vs(-3.52e-4, 1.04e-4), "(-3.5 +/- 1.0)e-4");
         assert_eq!(vs(0.8013, 0.012), "0.801 +/- 0.012");
         assert_eq!(vs(12.345, 1.5), "12.3 +/- 1.5");
