@@ -255,9 +255,9 @@ fn nights_arrive_and_each_quiet_period_gives_one_solution() {
         }
     }
 
-    // The plan stored with the solution: the recommended model against a
-    // rival, nights ranked by separation; and a plan for a window, from
-    // the store and from the command, alike.
+    // The plan stored with the solution: the recommended model against its
+    // rivals, nights ranked by the expected separation; and a plan for a
+    // window, from the store and from the command, alike.
     let object = common::daemon::encode(OBJECT);
     let (status, stored_plan) = d.get(&format!("/v1/objects/{object}/plan"));
     assert_eq!(status, 200, "{stored_plan}");
@@ -268,7 +268,7 @@ fn nights_arrive_and_each_quiet_period_gives_one_solution() {
         .as_array()
         .unwrap()
         .iter()
-        .map(|n| n["separation_sigma"].as_f64().unwrap())
+        .map(|n| n["expected_sigma"].as_f64().unwrap())
         .collect();
     assert!(ranked.windows(2).all(|w| w[0] >= w[1]), "{ranked:?}");
     let window = ["2026-09-01", "2026-09-15"];
@@ -306,7 +306,7 @@ fn nights_arrive_and_each_quiet_period_gives_one_solution() {
             .map(|n| {
                 (
                     (n["station"].to_string(), n["night"].to_string()),
-                    n["separation_sigma"].as_f64().unwrap(),
+                    n["expected_sigma"].as_f64().unwrap(),
                 )
             })
             .collect()

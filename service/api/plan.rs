@@ -102,16 +102,8 @@ pub async fn plan(
     } else {
         let (from, to) = match window {
             Some(w) => w,
-            None => (
-                time("from", &record.summary.created_utc)?,
-                time("to", &record.summary.created_utc).and_then(|t| {
-                    UtcTime::from_mjd_seconds(
-                        t.mjd() + crate::worker::job::PLAN_DAYS as i64,
-                        t.seconds_of_day(),
-                    )
-                    .map_err(|e| ApiError::bad_request("bad_time", e.to_string()))
-                })?,
-            ),
+            None => crate::solve::plan::stored_window(&record.summary.created_utc)
+                .map_err(|e| ApiError::bad_request("bad_time", e.to_string()))?,
         };
         let ctx = s.0.predictions.clone();
         let list = s.0.intake.config.stations.clone();

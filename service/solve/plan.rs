@@ -26,7 +26,7 @@ use crate::astro::ephemeris::{Body, Ephemeris};
 use crate::astro::observer::{
     altitude_rad, observer_barycentric_state, zenith_gcrs, ObserverPosition,
 };
-use crate::astro::time::{ScaledInstant, TimeScales, UtcTime};
+use crate::astro::time::{ScaledInstant, TimeError, TimeScales, UtcTime};
 use crate::fit::discriminate::{
     discrimination2, nights_to_settle, terms_statistic_after, tracklet_noise,
 };
@@ -56,6 +56,18 @@ pub const TRACKLET_OBSERVATIONS: usize = 4;
 pub const STEP_MINUTES: f64 = 30.0;
 /// The longest window one plan may cover.
 pub const MOST_DAYS: f64 = 366.0;
+/// Days ahead the plan the daemon stores with each solution covers.
+pub const STORED_PLAN_DAYS: i64 = 30;
+
+/// The stored plan's window: from `created` for [`STORED_PLAN_DAYS`].
+pub fn stored_window(created_utc: &str) -> Result<(UtcTime, UtcTime), TimeError> {
+    let from = UtcTime::parse_iso8601(created_utc)?;
+    let to = UtcTime::from_mjd_seconds(from.mjd() + STORED_PLAN_DAYS, from.seconds_of_day())?;
+    Ok((from, to))
+}
+
+/// Rivals lighter than this are left out of a plan.
+pub const MIN_RIVAL_WEIGHT: f64 = 0.01;
 /// Nights listed in the text (the JSON has them all).
 const NIGHTS_SHOWN: usize = 15;
 
@@ -149,8 +161,8 @@ pub struct Plan {
 
 /// The rivals of `model` among converged candidates with a covariance,
 /// each weighted by exp(-dBIC/2) among them (normalised), heaviest first;
-/// those more than [`NEGLIGIBLE_DELTA_BIC`] above the best rival carry no
-/// weight worth a prediction and are left out.
+/// those below [`MIN_RIVAL_WEIGHT`] are left out and the rest
+/// renormalised.
 pub fn rivals_of<'a>(
     candidates: &'a [(String, Option<f64>, &'a OrbitFit)],
     model: &str,
@@ -179,6 +191,12 @@ pub fn rivals_of<'a>(
             fit: c.2,
         })
         .collect();
+    // Rivals below a percent move no ranking and cost a prediction each.
+    rivals.retain(|r| r.weight >= MIN_RIVAL_WEIGHT);
+    let total: f64 = rivals.iter().map(|r| r.weight).sum();
+    for r in &mut rivals {
+        r.weight /= total;
+    }
     rivals.sort_by(|a, b| b.weight.total_cmp(&a.weight));
     rivals
 }

@@ -323,24 +323,15 @@ pub fn refit(
     Ok(Some(summary))
 }
 
-/// Days ahead the plan stored with each solution covers.
-pub const PLAN_DAYS: f64 = 30.0;
-
-/// The nights of the next [`PLAN_DAYS`] that would best tell the new
-/// solution's recommended model from its strongest rival, at the stations
-/// that observed the body.
+/// The nights of the coming month that would best tell the new
+/// solution's recommended model from its rivals, at the stations that
+/// observed the body.
 fn plan_ahead(
     ctx: &JobContext,
     document: &serde_json::Value,
     created_utc: &str,
 ) -> Result<crate::solve::plan::Plan, String> {
-    let from =
-        crate::astro::time::UtcTime::parse_iso8601(created_utc).map_err(|e| e.to_string())?;
-    let to = crate::astro::time::UtcTime::from_mjd_seconds(
-        from.mjd() + PLAN_DAYS as i64,
-        from.seconds_of_day(),
-    )
-    .map_err(|e| e.to_string())?;
+    let (from, to) = crate::solve::plan::stored_window(created_utc).map_err(|e| e.to_string())?;
     crate::solve::plan::plan_stored(
         ctx.solve.ephemeris.as_ref(),
         &ctx.solve.scales,
