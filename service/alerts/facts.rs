@@ -101,7 +101,8 @@ pub struct SolutionFacts {
     pub terms: Vec<String>,
     pub law: Option<String>,
     /// Whether the data choose the recommended model's law: every other
-    /// law's fit with the same terms is at least [`LAW_BIC_MARGIN`] worse
+    /// law's fit with the same terms is at least
+    /// [`crate::solve::verdicts::BIC_MARGIN`] worse
     /// in BIC.
     pub law_determined: bool,
     pub nongrav: BTreeMap<String, ValueSigma>,
@@ -128,10 +129,6 @@ pub struct SolutionFacts {
     /// was due, when none ever converged); None when this one converged.
     pub hours_without_solution: Option<f64>,
 }
-
-/// A BIC difference below this is not strong evidence (Kass & Raftery
-/// 1995, J. Am. Stat. Assoc. 90, 773, sec. 3.2).
-pub const LAW_BIC_MARGIN: f64 = 6.0;
 
 /// What the facts are built from.
 pub struct FactsInput<'a> {
@@ -200,15 +197,12 @@ pub fn solution_facts(
         previous_terms: input.previous_document.and_then(recommended_terms),
         terms: recommended.map(|m| m.terms.clone()).unwrap_or_default(),
         law: recommended.and_then(|m| m.law.clone()),
-        law_determined: recommended.is_some_and(|r| {
-            doc.into_iter()
-                .flat_map(|d| d.models.iter())
-                .filter(|m| m.converged && m.terms == r.terms && m.law != r.law)
-                .all(|m| match (m.bic, r.bic) {
-                    (Some(other), Some(this)) => other - this >= LAW_BIC_MARGIN,
-                    _ => false,
-                })
-        }),
+        // The verdict's own reading, so the mail and the report agree;
+        // without a rival law that converged there is nothing to choose.
+        law_determined: recommended.is_some()
+            && doc
+                .and_then(|d| d.law.as_ref())
+                .is_none_or(|l| l.determined),
         nongrav: recommended.map(|m| m.nongrav.clone()).unwrap_or_default(),
         // The bound verdict's figure: averaged over the models when the
         // data cannot tell their laws apart.

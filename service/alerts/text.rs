@@ -193,11 +193,17 @@ fn what_happened(c: &Crossing, f: &SolutionFacts, s: &AlertSettings) -> String {
             );
             if raised && !f.terms.is_empty() {
                 let law = f.law.as_deref().unwrap_or("no");
-                let _ = write!(
-                    t,
-                    "\nThe ladder recommends {} with the {law} law:",
-                    f.terms.join(", ")
-                );
+                // A law the data do not choose is not named as if known.
+                let which = if f.law_determined {
+                    format!("with the {law} law")
+                } else {
+                    format!(
+                        "(the radial law is not determined: BIC differences below {}; \
+                         figures under the {law} law)",
+                        crate::solve::verdicts::BIC_MARGIN
+                    )
+                };
+                let _ = write!(t, "\nThe ladder recommends {} {which}:", f.terms.join(", "));
                 for (name, v) in &f.nongrav {
                     let _ = write!(t, " {name} = {} au/d^2;", value_sigma(*v));
                 }
