@@ -16,6 +16,7 @@
 //! - [`alerts`]: rules over each stored solution, the words of an alert,
 //!   and the outbox that delivers them by e-mail and webhook.
 //! - [`api`]: the JSON endpoint.
+//! - [`page`]: the read-only pages the daemon serves, and their SVG plots.
 //! - [`daemon`]: `perihelix serve`, the stages wired together, shutdown,
 //!   systemd notification and metrics.
 // Constants are written with the digits their sources print (DE440 GM
@@ -30,6 +31,7 @@ pub mod config;
 pub mod daemon;
 pub mod fit;
 pub mod ingest;
+pub mod page;
 pub mod solve;
 pub mod store;
 pub mod watch;
