@@ -320,6 +320,44 @@ fn nights_arrive_and_each_quiet_period_gives_one_solution() {
             "{key:?}: separation {u} vs {v}"
         );
     }
+
+    // The pages (issue 13): the index links the object; its page plots
+    // one 1/a point per converged solution, read back from the SVG.
+    let index = d.get_text("/");
+    assert!(index.contains("2026 ZB1"), "{index}");
+    assert!(!index.contains("<script"), "{index}");
+    let page = d.get_text(&format!("/objects/{object}"));
+    let figure = |id: &str| -> String {
+        let start = page
+            .find(&format!("<figure class=\"plot\" id=\"{id}\">"))
+            .unwrap_or_else(|| panic!("no figure {id}"));
+        let rest = &page[start..];
+        let from = rest.find("<svg").expect("an svg");
+        let to = rest.find("</figure>").expect("the figure's end");
+        rest[from..to].to_string()
+    };
+    let converged = d
+        .solutions(OBJECT)
+        .iter()
+        .filter(|s| s["converged"] == true)
+        .count();
+    let svg = figure("plot-inverse-a");
+    let tree = roxmltree::Document::parse(&svg).expect("the plot is well-formed SVG");
+    let points = tree
+        .descendants()
+        .filter(|n| n.attribute("class") == Some("point"))
+        .count();
+    assert!(converged > 0);
+    assert_eq!(points, converged);
+    for id in [
+        "plot-e",
+        "plot-ng",
+        "plot-rms",
+        "plot-residuals-ra",
+        "plot-residuals-dec",
+    ] {
+        roxmltree::Document::parse(&figure(id)).expect("well-formed SVG");
+    }
     let status = d.stop(Duration::from_secs(30));
     assert!(status.success(), "exit status {status}");
 }

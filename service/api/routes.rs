@@ -239,6 +239,9 @@ pub fn router(state: ApiState) -> Router {
         .fold(Router::new(), |router, route| {
             router.route(route.path, route.handler)
         })
+        // The pages are for people, not part of the JSON API's description.
+        .route("/", get(crate::page::index))
+        .route("/objects/{id}", get(crate::page::object))
         .fallback(|| async { ApiError::not_found("no such route") })
         .layer(axum::middleware::from_fn(refuse_declared_oversize))
         .layer(DefaultBodyLimit::max(BODY_LIMIT_BYTES))
@@ -301,7 +304,7 @@ async fn metrics(State(s): State<ApiState>) -> Response {
 }
 
 /// Runs a store read off the executor (sled reads can touch the disk).
-pub(super) async fn blocking<T: Send + 'static>(
+pub(crate) async fn blocking<T: Send + 'static>(
     s: &ApiState,
     f: impl FnOnce(&dyn Store) -> Result<T, crate::store::StoreError> + Send + 'static,
 ) -> Result<T, ApiError> {
@@ -336,7 +339,7 @@ fn valid_name(name: &str) -> Result<(), ApiError> {
     Ok(())
 }
 
-pub(super) async fn find_object(s: &ApiState, name: String) -> Result<ObjectState, ApiError> {
+pub(crate) async fn find_object(s: &ApiState, name: String) -> Result<ObjectState, ApiError> {
     valid_name(&name)?;
     let shown = name.clone();
     blocking(s, move |store| store.object(&name))
