@@ -135,10 +135,7 @@ fn summary(
         // The bound verdict's figure (averaged over the models when the
         // law is not determined), so the history, the page and the
         // alerts quote one number.
-        one_over_a_original_per_au: doc
-            .bound
-            .as_ref()
-            .map(|b| b.one_over_a_original_per_au),
+        one_over_a_original_per_au: doc.bound.as_ref().map(|b| b.one_over_a_original_per_au),
         ng_significance_sigma: doc.ng_significance_sigma,
         rms_arcsec: rec.and_then(|m| m.rms_arcsec),
         normalized_rms: rec.and_then(|m| m.normalized_rms),
