@@ -16,9 +16,10 @@ pub mod svg;
 use axum::extract::{Path, State};
 use axum::response::{Html, IntoResponse, Response};
 
+use crate::alerts::event::AlertRecord;
 use crate::api::error::ApiError;
 use crate::api::routes::{blocking, find_object, ApiState};
-use crate::store::Store;
+use crate::store::{ObjectState, SolutionRecord, SolutionSummary, Store};
 use crate::worker::job::best_designation;
 
 /// Most solutions one page plots.
@@ -30,7 +31,7 @@ const MOST_ALERTS: usize = 200;
 fn object_alerts(
     store: &dyn Store,
     id: &str,
-) -> Result<Vec<crate::alerts::event::AlertRecord>, crate::store::StoreError> {
+) -> Result<Vec<AlertRecord>, crate::store::StoreError> {
     let id = id.to_string();
     store
         .alerts(None, MOST_ALERTS, &move |a| a.event.object_id == id)
@@ -83,36 +84,51 @@ pub async fn object(
         Ok((summaries, latest, alerts))
     })
     .await?;
+    let page =
+        render_object(&object, &summaries, latest.as_ref(), &alerts, threshold).map_err(|e| {
+            ApiError::new(
+                axum::http::StatusCode::INTERNAL_SERVER_ERROR,
+                "plot",
+                e.to_string(),
+            )
+        })?;
+    Ok(Html(page).into_response())
+}
+
+/// The object page from what the store holds: `summaries` oldest first,
+/// the latest record, the object's alerts, the NG alert threshold. Pure:
+/// the handler's reads done, this is the whole rendering (and what the
+/// `page_render` bench times).
+pub fn render_object(
+    object: &ObjectState,
+    summaries: &[SolutionSummary],
+    latest: Option<&SolutionRecord>,
+    alerts: &[AlertRecord],
+    ng_threshold_sigma: f64,
+) -> Result<String, svg::ChartError> {
     let first_obs_mjd = object
         .first_obs_utc
         .as_deref()
         .and_then(charts::mjd_of)
         .unwrap_or(0.0);
-    let document = latest.as_ref().and_then(|r| r.document.as_ref());
+    let document = latest.and_then(|r| r.document.as_ref());
     let mut plots = Vec::new();
-    let mut all = charts::history_charts(&summaries, first_obs_mjd, threshold);
+    let mut all = charts::history_charts(summaries, first_obs_mjd, ng_threshold_sigma);
     if let Some(doc) = document {
         all.extend(charts::residual_charts(doc));
     }
     for (id, chart) in all {
-        let svg = chart.to_svg().map_err(|e| {
-            ApiError::new(
-                axum::http::StatusCode::INTERNAL_SERVER_ERROR,
-                "plot",
-                format!("{id}: {e}"),
-            )
-        })?;
-        plots.push((id, svg));
+        plots.push((id, chart.to_svg()?));
     }
-    let name = best_designation(&object);
+    let name = best_designation(object);
     let view = html::ObjectView {
-        object: &object,
+        object,
         name: &name,
         solutions: summaries.len(),
         plots,
         document,
-        plan: latest.as_ref().and_then(|r| r.plan.as_ref()),
-        alerts: &alerts,
+        plan: latest.and_then(|r| r.plan.as_ref()),
+        alerts,
     };
-    Ok(Html(html::object(&view)).into_response())
+    Ok(html::object(&view))
 }
