@@ -115,7 +115,7 @@ enum Command {
         json: bool,
     },
     /// Rank the nights and stations where one night's observations would
-    /// best tell the recommended model from its strongest rival (fitted
+    /// best tell the recommended model from its rivals (fitted
     /// from the files first, as `fit` does).
     Plan {
         /// Observation files (.psv, .xml, .jsonl).
@@ -131,9 +131,9 @@ enum Command {
         /// that observed the object).
         #[arg(long = "station", value_name = "CODE")]
         stations_wanted: Vec<String>,
-        /// The rival model to tell the recommended one from, by its name in
-        /// the fit report (default: the other converged model with the
-        /// lowest BIC).
+        /// One rival model to tell the recommended one from, by its name in
+        /// the fit report (default: every other converged model, each
+        /// weighed by how well it fits, exp(-dBIC/2)).
         #[arg(long)]
         rival: Option<String>,
         /// Configuration file for the fit settings and the station list

@@ -1,5 +1,5 @@
 //! `GET /v1/objects/{id}/plan`: the nights that would best tell a stored
-//! solution's recommended model from its strongest rival. Without a
+//! solution's recommended model from its rivals. Without a
 //! window, the plan the daemon stored with the solution (the month after
 //! it); with `from` and `to`, one computed now from the stored solution,
 //! without refitting.
@@ -27,7 +27,7 @@ pub const PLAN_QUERY: &[(&str, &str)] = &[
     ),
     (
         "rival",
-        "the model to tell the recommended one from (default: the lowest-BIC other)",
+        "one model to tell the recommended one from (default: every other, weighed by exp(-dBIC/2))",
     ),
     (
         "solution",

@@ -159,7 +159,7 @@ pub fn routes() -> Vec<Route> {
         r("get", "/v1/objects/{id}/solutions/{seq}", "One solution record, whole.", false, &[], get(solution)),
         r("get", "/v1/objects/{id}/solutions/{seq}/residuals", "Every observation's residual under that solution's recommended model.", false, &[], get(residuals)),
         r("get", "/v1/objects/{id}/predictions", "Places and uncertainty ellipses from a stored solution, without refitting.", false, PREDICTION_QUERY, get(super::predict::predictions)),
-        r("get", "/v1/objects/{id}/plan", "The nights that would best tell the recommended model from its strongest rival: stored with the solution, or for a window.", false, super::plan::PLAN_QUERY, get(super::plan::plan)),
+        r("get", "/v1/objects/{id}/plan", "The nights that would best tell the recommended model from its rivals: stored with the solution, or for a window.", false, super::plan::PLAN_QUERY, get(super::plan::plan)),
         r("get", "/v1/objects/{id}/observations", "The object's observations in time order.", false, PAGE_QUERY, get(observations)),
         r("post", "/v1/objects/{id}/refit", "Ask for a refit now (optional JSON: by, reason); journaled, so it survives a stop.", true, &[], post(super::overrides::post_refit)),
         r("get", "/v1/objects/{id}/overrides", "The analysts' decisions about the object, in order.", false, &[], get(super::overrides::list_overrides)),

@@ -1,6 +1,6 @@
 //! The observation that would settle it: for each station and each night
 //! in a window, how well one tracklet there would tell the recommended
-//! model from its strongest rival ([`crate::fit::discriminate`]), ranked.
+//! model from its rivals ([`crate::fit::discriminate`]), ranked.
 //!
 //! A night counts where the Sun is at least 12 degrees below the horizon
 //! (nautical twilight's end) and the body at least 20 degrees above it
@@ -315,7 +315,7 @@ pub fn stations_of(
 }
 
 /// The plan of a stored solution: its recommended model against `rival`
-/// (or the strongest one), for `wanted` stations (or every station that
+/// (or every plausible rival, weighed), for `wanted` stations (or every station that
 /// observed the body). The one path of the command, the API and the
 /// daemon.
 #[allow(clippy::too_many_arguments)]
