@@ -641,11 +641,7 @@ fn predict(
     if chosen.converged_fit().is_none() {
         anyhow::bail!("--model {:?}: that model did not converge", chosen.name());
     }
-    let candidates: Vec<(String, Option<f64>, &perihelix::fit::lsq::OrbitFit)> = ladder
-        .models
-        .iter()
-        .filter_map(|m| Some((m.name(), m.bic, m.converged_fit()?)))
-        .collect();
+    let candidates = ladder.converged_models();
     let points: Vec<PredictionPoint> = times
         .into_iter()
         .map(|time| PredictionPoint { time, observer })
@@ -654,10 +650,9 @@ fn predict(
     let fit_settings = perihelix::solve::settings::solve_settings(&cfg.fit, &cfg.stations)?;
     let settings = PredictSettings {
         method: options.method,
-        propagation: fit_settings.ladder.fit.propagation,
         // Magnitudes from the brightness law the observations support.
         magnitude: solved.brightness.as_ref().and_then(|b| b.law),
-        ..PredictSettings::default()
+        ..fit_settings.predict_settings()
     };
     let predicted = predict_with_average(
         solved.ephemeris.as_ref(),

@@ -17,7 +17,7 @@ use nalgebra::Vector2;
 
 use crate::fit::mixture::AveragedPlace;
 use crate::fit::observe::{wrap_pi, ARCSEC_PER_RAD};
-use crate::fit::predict::{predict_places, PredictSettings, PredictionPoint};
+use crate::fit::predict::{predict_places, PredictionPoint};
 use crate::solve::document::{SolutionDocument, ValueSigma};
 use crate::solve::prediction::predict_stored;
 use crate::solve::stored::model_fit;
@@ -303,10 +303,7 @@ fn try_places(
         })
         .collect::<Result<Vec<_>, String>>()?;
     let settings = &ctx.settings;
-    let p = PredictSettings {
-        propagation: settings.ladder.fit.propagation,
-        ..PredictSettings::default()
-    };
+    let p = settings.predict_settings();
     let predict = |document: Option<&Value>| {
         predict_stored(
             ctx.ephemeris.as_ref(),

@@ -95,9 +95,8 @@ pub async fn predictions(
             .collect();
         let settings = PredictSettings {
             method,
-            propagation: ctx.settings.ladder.fit.propagation,
             magnitude: record.document.as_ref().and_then(magnitude_law),
-            ..PredictSettings::default()
+            ..ctx.settings.predict_settings()
         };
         let predicted = predict_stored(
             ctx.ephemeris.as_ref(),

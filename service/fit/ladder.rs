@@ -236,6 +236,15 @@ impl Ladder {
     pub fn recommended_model(&self) -> Option<&ModelFit> {
         self.recommended.map(|i| &self.models[i])
     }
+
+    /// Every converged model as (name, BIC, fit): what a model average or
+    /// a plan weighs.
+    pub fn converged_models(&self) -> Vec<(String, Option<f64>, &OrbitFit)> {
+        self.models
+            .iter()
+            .filter_map(|m| Some((m.name(), m.bic, m.converged_fit()?)))
+            .collect()
+    }
 }
 
 fn is_subset(a: FreeParameters, b: FreeParameters) -> bool {

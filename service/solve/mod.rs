@@ -81,6 +81,16 @@ pub struct SolveSettings {
     pub distant_inverse_a: bool,
 }
 
+impl SolveSettings {
+    /// Linear predictions carried by the fit's own integrator settings.
+    pub fn predict_settings(&self) -> crate::fit::predict::PredictSettings {
+        crate::fit::predict::PredictSettings {
+            propagation: self.ladder.fit.propagation,
+            ..Default::default()
+        }
+    }
+}
+
 impl Default for SolveSettings {
     fn default() -> Self {
         Self {
@@ -435,10 +445,7 @@ pub fn solve_records_in(
         ephemeris.as_ref(),
         scales,
         &solution,
-        &crate::fit::predict::PredictSettings {
-            propagation: settings.ladder.fit.propagation,
-            ..Default::default()
-        },
+        &settings.predict_settings(),
     ) {
         Ok(o) => Some(o),
         Err(why) => {

@@ -12,7 +12,6 @@ use serde::Serialize;
 use crate::astro::ephemeris::Ephemeris;
 use crate::astro::observer::ObserverPosition;
 use crate::astro::time::TimeScales;
-use crate::fit::lsq::OrbitFit;
 use crate::fit::predict::{PredictSettings, PredictionPoint};
 
 use super::prediction::predict_with_average;
@@ -58,11 +57,7 @@ pub fn outlook(
         .recommended_model()
         .ok_or("no model is recommended")?
         .name();
-    let candidates: Vec<(String, Option<f64>, &OrbitFit)> = ladder
-        .models
-        .iter()
-        .filter_map(|m| Some((m.name(), m.bic, m.converged_fit()?)))
-        .collect();
+    let candidates = ladder.converged_models();
     let time = scales
         .resolve_tdb(solution.last.plus_days(OUTLOOK_DAYS), None)
         .map_err(|e| e.to_string())?;

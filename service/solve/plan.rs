@@ -346,10 +346,7 @@ pub fn plan_stored(
     if stations.is_empty() {
         return Err(PlanError::NoStation);
     }
-    let predict = PredictSettings {
-        propagation: settings.ladder.fit.propagation,
-        ..PredictSettings::default()
-    };
+    let predict = settings.predict_settings();
     let mut plan = plan_among(
         ephemeris,
         scales,

@@ -25,9 +25,8 @@ use perihelix::astro::observer::{observer_barycentric_state, ObserverPosition};
 use perihelix::astro::propagation::{PropagationSettings, Trajectory};
 use perihelix::astro::time::TimeScales;
 use perihelix::fit::ladder::model_name;
-use perihelix::fit::lsq::OrbitFit;
 use perihelix::fit::observe::{self, wrap_pi, ObserverAt, ARCSEC_PER_RAD};
-use perihelix::fit::predict::{PredictSettings, PredictionPoint};
+use perihelix::fit::predict::PredictionPoint;
 use perihelix::solve::prediction::predict_with_average;
 use perihelix::solve::{solve, SolveSettings};
 
@@ -185,15 +184,6 @@ pub fn calibration_solve_settings() -> SolveSettings {
     stress_settings(false)
 }
 
-/// The predict settings: the fit's own integrator settings, linear
-/// ellipses (as `perihelix predict` and the alerts use them).
-pub fn predict_settings(settings: &SolveSettings) -> PredictSettings {
-    PredictSettings {
-        propagation: settings.ladder.fit.propagation,
-        ..PredictSettings::default()
-    }
-}
-
 /// One fresh noise draw: the whole ladder through the daemon's job, the
 /// recommended and the averaged place at `point`, both against `truth`
 /// (RA, Dec radians). Err says why a draw gave no prediction.
@@ -214,17 +204,13 @@ pub fn prediction_draw(
         .recommended_model()
         .ok_or("no model recommended")?
         .name();
-    let candidates: Vec<(String, Option<f64>, &OrbitFit)> = ladder
-        .models
-        .iter()
-        .filter_map(|m| Some((m.name(), m.bic, m.converged_fit()?)))
-        .collect();
+    let candidates = ladder.converged_models();
     let predicted = predict_with_average(
         ephemeris,
         &candidates,
         &chosen,
         std::slice::from_ref(point),
-        &predict_settings(settings),
+        &settings.predict_settings(),
     )
     .map_err(|e| e.to_string())?;
     let rec = predicted.places.first().ok_or("no recommended place")?;
