@@ -353,8 +353,12 @@ fn nights_arrive_and_each_quiet_period_gives_one_solution() {
         "plot-e",
         "plot-ng",
         "plot-rms",
+        "plot-terms",
+        "plot-shift",
         "plot-residuals-ra",
+        "plot-gravity-residuals-ra",
         "plot-residuals-dec",
+        "plot-gravity-residuals-dec",
     ] {
         roxmltree::Document::parse(&figure(id)).expect("well-formed SVG");
     }

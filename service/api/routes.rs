@@ -157,7 +157,7 @@ pub fn routes() -> Vec<Route> {
         r("get", "/v1/objects/{id}/solutions", "The object's solutions, newest first.", false, SOLUTION_QUERY, get(solutions)),
         r("get", "/v1/objects/{id}/solutions/latest", "The latest solution record, whole.", false, &[], get(latest_solution)),
         r("get", "/v1/objects/{id}/solutions/{seq}", "One solution record, whole.", false, &[], get(solution)),
-        r("get", "/v1/objects/{id}/solutions/{seq}/residuals", "Every observation's residual under that solution's recommended model.", false, &[], get(residuals)),
+        r("get", "/v1/objects/{id}/solutions/{seq}/residuals", "Every observation's residual under that solution's recommended model, and under gravity alone when another model is recommended.", false, &[], get(residuals)),
         r("get", "/v1/objects/{id}/predictions", "Places and uncertainty ellipses from a stored solution, without refitting.", false, PREDICTION_QUERY, get(super::predict::predictions)),
         r("get", "/v1/objects/{id}/plan", "The nights that would best tell the recommended model from its rivals: stored with the solution, or for a window.", false, super::plan::PLAN_QUERY, get(super::plan::plan)),
         r("get", "/v1/objects/{id}/observations", "The object's observations in time order.", false, PAGE_QUERY, get(observations)),
@@ -505,16 +505,21 @@ async fn residuals(
     })?;
     let object = find_object(&s, id).await?;
     let oid = object.id.clone();
-    let list = blocking(&s, move |store| store.residuals(&oid, seq))
+    let mut lists = blocking(&s, move |store| store.residuals(&oid, seq))
         .await?
         .ok_or_else(|| {
             ApiError::not_found(format!("object {} has no solution {seq}", object.id))
         })?;
-    Ok(Json(serde_json::json!({
+    let mut answer = serde_json::json!({
         "object_id": object.id,
         "solution": seq,
-        "residuals": list,
-    })))
+        "residuals": lists.remove("residuals").unwrap_or(serde_json::Value::Array(Vec::new())),
+    });
+    // Present when another model than gravity alone is recommended.
+    if let Some(gravity) = lists.remove("gravity_residuals") {
+        answer["gravity_residuals"] = gravity;
+    }
+    Ok(Json(answer))
 }
 
 #[derive(Serialize)]

@@ -5,7 +5,7 @@ use std::fmt::Write;
 
 use serde_json::Value;
 
-use crate::alerts::event::AlertRecord;
+use crate::alerts::event::{AlertRecord, Edge};
 use crate::solve::numbers::{fixed, rounded};
 use crate::solve::plan::Plan;
 use crate::store::{ObjectState, SolutionSummary};
@@ -30,12 +30,13 @@ const STYLE: &str = "body{font-family:sans-serif;margin:1.5em;color:#000;backgro
 table{border-collapse:collapse;margin:0.5em 0}th,td{border:1px solid #bbb;padding:0.2em 0.5em;text-align:left}\
 td.n{text-align:right;font-variant-numeric:tabular-nums}figure{margin:1em 0}\
 .verdict{border-left:4px solid #0072B2;padding-left:0.8em}.warning{border-left-color:#D55E00}\
-.caution{font-size:0.9em;color:#333}";
+.caution{font-size:0.9em;color:#333}figure svg{max-width:100%;height:auto}.pair{display:grid;grid-template-columns:repeat(auto-fit,minmax(26em,1fr));gap:0 1em}";
 
 fn page(title: &str, body: &str) -> String {
     format!(
         "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>{}</title>\
          <meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\
+         <link rel=\"icon\" href=\"data:,\">\
          <style>{STYLE}</style></head>\n<body>\n{body}\n<p class=\"caution\">Predictions are for \
          planning observations. This service computes no impact probabilities and does not \
          replace the official orbit-computing services or review by a qualified analyst.</p>\n\
@@ -83,8 +84,8 @@ pub fn index(rows: &[IndexRow]) -> String {
     }
     body.push_str(
         "<table id=\"objects\"><thead><tr><th>object</th><th>observations</th><th>arc (days)</th>\
-         <th>recommended model</th><th>came in</th><th>non-gravitational significance (sigma)</th>\
-         <th>last solution (UTC)</th><th>open alerts</th></tr></thead><tbody>\n",
+         <th>recommended model</th><th>bound or unbound (1/a in sigma)</th><th>non-gravitational significance (sigma)</th>\
+         <th>last solution (UTC)</th><th>open alerts (raised, not cleared, not acknowledged)</th></tr></thead><tbody>\n",
     );
     for r in rows {
         let o = &r.object;
@@ -119,8 +120,10 @@ pub struct ObjectView<'a> {
     pub object: &'a ObjectState,
     pub name: &'a str,
     pub solutions: usize,
-    /// (element id, SVG) in page order.
-    pub plots: Vec<(&'static str, String)>,
+    /// (element id, SVG) in page order: the solution history...
+    pub history: Vec<(&'static str, String)>,
+    /// ...and the latest residuals, set two to a row.
+    pub residuals: Vec<(&'static str, String)>,
     /// The latest solution's document, its plan and the object's alerts.
     pub document: Option<&'a Value>,
     pub plan: Option<&'a Plan>,
@@ -231,6 +234,38 @@ fn outlook_block(doc: &Value) -> String {
     t
 }
 
+/// The model-averaged place on the nights after the arc.
+fn ahead_block(doc: &Value) -> String {
+    let Some(rows) = doc["outlook"]["ahead"].as_array().filter(|r| !r.is_empty()) else {
+        return String::new();
+    };
+    let mut t = String::from(
+        "<h2>Where to point next (averaged over the models, from the geocentre)</h2>\n\
+         <table id=\"ahead\"><thead><tr><th>days after the last observation</th><th>UTC</th>\
+         <th>RA (deg)</th><th>Dec (deg)</th><th>1-sigma ellipse (arcsec)</th>\
+         <th>position angle (deg)</th><th>of which the models' disagreement (arcsec)</th>\
+         </tr></thead><tbody>\n",
+    );
+    let num = |v: &Value, d: usize| v.as_f64().map_or("-".into(), |x| fixed(x, d));
+    for r in rows {
+        let _ = writeln!(
+            t,
+            "<tr><td class=\"n\">{}</td><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td>\
+             <td class=\"n\">{} x {}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>",
+            num(&r["days_after_arc"], 0),
+            escape(r["utc"].as_str().unwrap_or("-")),
+            num(&r["ra_deg"], 5),
+            num(&r["dec_deg"], 5),
+            num(&r["semi_major_arcsec"], 2),
+            num(&r["semi_minor_arcsec"], 2),
+            num(&r["position_angle_deg"], 0),
+            num(&r["between_models_arcsec"], 2),
+        );
+    }
+    t.push_str("</tbody></table>");
+    t
+}
+
 fn plan_block(plan: &Plan) -> String {
     let mut t = format!(
         "<h2>Nights that would tell {} from its rivals ({} to {})</h2>\n\
@@ -264,15 +299,19 @@ fn alerts_block(alerts: &[AlertRecord]) -> String {
         return "<h2>Alerts</h2>\n<p>None.</p>".into();
     }
     let mut t = String::from(
-        "<h2>Alerts</h2>\n<table id=\"alerts\"><thead><tr><th>raised (UTC)</th><th>solution</th>\
-         <th>alert</th><th>acknowledged</th></tr></thead><tbody>\n",
+        "<h2>Alerts</h2>\n<table id=\"alerts\"><thead><tr><th>at (UTC)</th><th>solution</th>\
+         <th>raised or cleared</th><th>alert</th><th>acknowledged</th></tr></thead><tbody>\n",
     );
     for a in alerts {
         let _ = writeln!(
             t,
-            "<tr><td>{}</td><td class=\"n\">{}</td><td>{}</td><td>{}</td></tr>",
+            "<tr><td>{}</td><td class=\"n\">{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
             escape(&a.event.raised_utc),
             a.event.solution_seq,
+            match a.event.edge {
+                Edge::Raised => "raised",
+                Edge::Cleared => "cleared",
+            },
             escape(&a.event.subject),
             a.acknowledged
                 .as_ref()
@@ -303,13 +342,27 @@ pub fn object(view: &ObjectView) -> String {
         body.push_str(&verdict_block(doc));
         body.push('\n');
     }
-    body.push_str("<h2>How the picture moved</h2>\n");
-    for (id, svg) in &view.plots {
+    body.push_str("<h2>How the picture moved</h2>\n<div class=\"pair\">\n");
+    for (id, svg) in &view.history {
         let _ = writeln!(body, "<figure class=\"plot\" id=\"{id}\">{svg}</figure>");
+    }
+    body.push_str("</div>\n");
+    if !view.residuals.is_empty() {
+        body.push_str(
+            "<h2>The latest residuals</h2>\n<p>Under the recommended model and, when it is not \
+             gravity alone, under gravity alone beside it: a trend on the right that is gone on \
+             the left is what the extra terms absorb.</p>\n<div class=\"pair\">\n",
+        );
+        for (id, svg) in &view.residuals {
+            let _ = writeln!(body, "<figure class=\"plot\" id=\"{id}\">{svg}</figure>");
+        }
+        body.push_str("</div>\n");
     }
     if let Some(doc) = view.document {
         body.push_str("<h2>The latest ladder</h2>\n");
         body.push_str(&ladder_table(doc));
+        body.push('\n');
+        body.push_str(&ahead_block(doc));
         body.push('\n');
         body.push_str(&outlook_block(doc));
         body.push('\n');

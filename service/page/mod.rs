@@ -16,7 +16,7 @@ pub mod svg;
 use axum::extract::{Path, State};
 use axum::response::{Html, IntoResponse, Response};
 
-use crate::alerts::event::AlertRecord;
+use crate::alerts::event::{AlertRecord, Edge};
 use crate::api::error::ApiError;
 use crate::api::routes::{blocking, find_object, ApiState};
 use crate::store::{ObjectState, SolutionRecord, SolutionSummary, Store};
@@ -38,6 +38,19 @@ fn object_alerts(
         .map(|(list, _)| list)
 }
 
+/// The alerts an analyst still has to look at: per rule, the newest
+/// event, when it raised the rule and nobody acknowledged it. A rule
+/// that has cleared since is not open, whoever saw it; a message that a
+/// rule cleared is news, not an open alert. `alerts` newest first.
+pub fn open_alerts(alerts: &[AlertRecord]) -> usize {
+    let mut seen = std::collections::BTreeSet::new();
+    alerts
+        .iter()
+        .filter(|a| seen.insert(a.event.rule_key.as_str()))
+        .filter(|a| a.event.edge == Edge::Raised && a.acknowledged.is_none())
+        .count()
+}
+
 /// `/`.
 pub async fn index(State(s): State<ApiState>) -> Result<Html<String>, ApiError> {
     let rows = blocking(&s, |store| {
@@ -46,10 +59,7 @@ pub async fn index(State(s): State<ApiState>) -> Result<Html<String>, ApiError> 
             if object.merged_into.is_some() {
                 continue;
             }
-            let open_alerts = object_alerts(store, &object.id)?
-                .iter()
-                .filter(|a| a.acknowledged.is_none())
-                .count();
+            let open_alerts = open_alerts(&object_alerts(store, &object.id)?);
             rows.push(html::IndexRow {
                 name: best_designation(&object),
                 object,
@@ -112,23 +122,80 @@ pub fn render_object(
         .and_then(charts::mjd_of)
         .unwrap_or(0.0);
     let document = latest.and_then(|r| r.document.as_ref());
-    let mut plots = Vec::new();
-    let mut all = charts::history_charts(summaries, first_obs_mjd, ng_threshold_sigma);
-    if let Some(doc) = document {
-        all.extend(charts::residual_charts(doc));
-    }
-    for (id, chart) in all {
-        plots.push((id, chart.to_svg()?));
-    }
+    let draw = |charts: Vec<(&'static str, svg::Chart)>| {
+        charts
+            .into_iter()
+            .map(|(id, chart)| Ok((id, chart.to_svg()?)))
+            .collect::<Result<Vec<_>, svg::ChartError>>()
+    };
+    let history = draw(charts::history_charts(
+        summaries,
+        first_obs_mjd,
+        ng_threshold_sigma,
+    ))?;
+    let residuals = draw(document.map(charts::residual_charts).unwrap_or_default())?;
     let name = best_designation(object);
     let view = html::ObjectView {
         object,
         name: &name,
         solutions: summaries.len(),
-        plots,
+        history,
+        residuals,
         document,
         plan: latest.and_then(|r| r.plan.as_ref()),
         alerts,
     };
     Ok(html::object(&view))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::alerts::event::{Acknowledgement, AlertEvent, RuleKind};
+
+    fn alert(seq: u64, rule_key: &str, edge: Edge, acknowledged: bool) -> AlertRecord {
+        let id = AlertEvent::id_for("obj-1", seq, rule_key);
+        AlertRecord {
+            event: AlertEvent {
+                id: id.clone(),
+                object_id: "obj-1".into(),
+                designation: "2026 ZZ9".into(),
+                solution_seq: seq,
+                previous_seq: seq.checked_sub(1),
+                rule: RuleKind::Unbound,
+                rule_key: rule_key.into(),
+                edge,
+                raised_utc: format!("2026-12-0{seq}T00:00:00Z"),
+                value_before: None,
+                value_after: None,
+                threshold: None,
+                unit: "sigma".into(),
+                subject: "s".into(),
+                text: "t".into(),
+                details: serde_json::Value::Null,
+                channels: Vec::new(),
+            },
+            journal_seq: seq,
+            acknowledged: acknowledged.then(|| Acknowledgement {
+                alert_id: id,
+                by: "analyst".into(),
+                at_utc: "2026-12-09T00:00:00Z".into(),
+            }),
+        }
+    }
+
+    #[test]
+    fn open_alerts_are_raised_rules_nobody_saw_that_have_not_cleared() {
+        // Newest first: `unbound` raised at 1, cleared at 3; `ng_needed`
+        // raised at 2 and unseen; `gravity_fails` raised at 4, seen.
+        let alerts = [
+            alert(4, "gravity_fails", Edge::Raised, true),
+            alert(3, "unbound", Edge::Cleared, false),
+            alert(2, "ng_needed", Edge::Raised, false),
+            alert(1, "unbound", Edge::Raised, false),
+        ];
+        assert_eq!(open_alerts(&alerts), 1);
+        assert_eq!(open_alerts(&alerts[3..]), 1);
+        assert_eq!(open_alerts(&[]), 0);
+    }
 }

@@ -174,6 +174,18 @@ pub enum Axis {
     },
 }
 
+/// How y values map onto the plot's height.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum YScale {
+    Linear,
+    /// Whole decades, for a quantity that spans orders of magnitude (how
+    /// far a prediction moved, from degrees early to arcsec later). Values
+    /// at or below zero cannot be placed and are skipped; error bars are
+    /// not drawn. The marks' `data-y` (and the plot's `data-y-domain`)
+    /// then hold log10 of the value, as the plot's `data-y-scale` says.
+    Log10,
+}
+
 /// A second row of x tick labels along the top of the plot, reading
 /// `x - origin` at the primary ticks (e.g. arc length in days when `origin`
 /// is the first observation).
@@ -195,6 +207,7 @@ pub struct Chart {
     pub hlines: Vec<(f64, String)>,
     pub x_axis: Axis,
     pub secondary_x: Option<SecondaryAxis>,
+    pub y_scale: YScale,
     pub width: u32,
     pub height: u32,
 }
@@ -210,6 +223,7 @@ impl Chart {
             hlines: Vec::new(),
             x_axis: Axis::Linear,
             secondary_x: None,
+            y_scale: YScale::Linear,
             width: 640,
             height: 360,
         }
@@ -405,6 +419,36 @@ fn plan_linear(lo: f64, hi: f64, target: usize) -> AxisPlan {
     }
 }
 
+/// `lo..hi` are log10 values: ticks on whole decades, labelled with the
+/// values themselves (0.1, 1, 10).
+fn plan_decades(lo: f64, hi: f64, target: usize) -> AxisPlan {
+    let (lo, hi) = padded_range(lo, hi, Some(0.5));
+    match step_for(lo, hi, target, true).and_then(|s| ticks_with(lo, hi, s)) {
+        Some(ticks) => {
+            let values: Vec<f64> = ticks.iter().map(|t| decade(*t)).collect();
+            AxisPlan {
+                domain: (ticks[0], ticks[ticks.len() - 1]),
+                labels: number_labels(&values),
+                ticks,
+                decimals: None,
+            }
+        }
+        None => two_end_axis(lo, hi, |t| format!("{:.3e}", 10f64.powf(t))),
+    }
+}
+
+/// 10^k for a whole k, as the nearest double to its decimal (0.01, not
+/// what powf may leave a unit off): powers up to 10^22 are exact, and
+/// one division of exact values rounds correctly.
+fn decade(k: f64) -> f64 {
+    let k = k.round().clamp(-300.0, 300.0) as i32;
+    if k >= 0 {
+        10f64.powi(k)
+    } else {
+        1.0 / 10f64.powi(-k)
+    }
+}
+
 fn plan_time(lo: f64, hi: f64, target: usize, epoch_mjd: f64) -> AxisPlan {
     let (lo, hi) = padded_range(
         clamp_finite(lo + epoch_mjd),
@@ -413,10 +457,27 @@ fn plan_time(lo: f64, hi: f64, target: usize, epoch_mjd: f64) -> AxisPlan {
     );
     let date =
         |mjd: f64| iso_date_of_mjd(mjd.round() as i64).unwrap_or_else(|| format!("MJD {mjd:.0}"));
-    let planned = step_for(lo, hi, target, true).and_then(|s| Some((s, ticks_with(lo, hi, s)?)));
+    // A time axis spans the data (padded), not the outermost ticks: dates
+    // fall on multiples of the step, so enclosing ticks could add up to a
+    // whole step of empty days before the first observation. Only when
+    // fewer than two dates fall inside (under a day of data) does the axis
+    // reach out to the enclosing midnights.
+    let planned = step_for(lo, hi, target, true).and_then(|s| {
+        let all = ticks_with(lo, hi, s)?;
+        let inside: Vec<f64> = all
+            .iter()
+            .copied()
+            .filter(|t| (lo..=hi).contains(t))
+            .collect();
+        Some(if inside.len() >= 2 {
+            (s, (lo, hi), inside)
+        } else {
+            (s, (all[0], all[all.len() - 1]), all)
+        })
+    });
     let mut plan = match planned {
-        Some((step, mjds)) => AxisPlan {
-            domain: (mjds[0], mjds[mjds.len() - 1]),
+        Some((step, domain, mjds)) => AxisPlan {
+            domain,
             labels: mjds.iter().map(|&m| date(m)).collect(),
             ticks: mjds,
             decimals: Some(step.decimals()),
@@ -546,6 +607,45 @@ impl Chart {
     /// The chart as a standalone SVG document, or why it cannot be drawn.
     pub fn to_svg(&self) -> Result<String, ChartError> {
         self.validate()?;
+        match self.y_scale {
+            YScale::Linear => self.draw(),
+            // Drawn as a linear chart of log10(y) whose y ticks are decades.
+            YScale::Log10 => self.in_log_space().draw(),
+        }
+    }
+
+    /// The same chart with every y (and reference line) as its log10;
+    /// values that have none become NaN, so they are skipped and counted.
+    fn in_log_space(&self) -> Self {
+        let log = |y: f64| if y > 0.0 { y.log10() } else { f64::NAN };
+        Self {
+            series: self
+                .series
+                .iter()
+                .map(|s| Series {
+                    points: s
+                        .points
+                        .iter()
+                        .map(|p| Point {
+                            y: log(p.y),
+                            y_err: None,
+                            ..*p
+                        })
+                        .collect(),
+                    ..s.clone()
+                })
+                .collect(),
+            hlines: self
+                .hlines
+                .iter()
+                .filter(|(v, _)| *v > 0.0)
+                .map(|(v, l)| (v.log10(), l.clone()))
+                .collect(),
+            ..self.clone()
+        }
+    }
+
+    fn draw(&self) -> Result<String, ChartError> {
         let drawable: Vec<Drawable> = self
             .series
             .iter()
@@ -606,7 +706,11 @@ impl Chart {
             };
 
         let (y_lo, y_hi) = self.y_data_range(drawable);
-        let y_plan = plan_linear(y_lo, y_hi, ((bottom - top) / 45.0) as usize);
+        let y_target = ((bottom - top) / 45.0) as usize;
+        let y_plan = match self.y_scale {
+            YScale::Linear => plan_linear(y_lo, y_hi, y_target),
+            YScale::Log10 => plan_decades(y_lo, y_hi, y_target),
+        };
         let widest = y_plan
             .labels
             .iter()
@@ -967,7 +1071,7 @@ impl Chart {
         y: &AxisPlan,
     ) {
         out.line(format_args!(
-            r#"<g class="plot" data-series-count="{}" data-point-count="{}" data-skipped="{}" data-x-domain="{} {}" data-y-domain="{} {}">"#,
+            r#"<g class="plot" data-series-count="{}" data-point-count="{}" data-skipped="{}" data-x-domain="{} {}" data-y-domain="{} {}" data-y-scale="{}">"#,
             self.series.len(),
             count_drawn(drawable),
             count_skipped(drawable),
@@ -975,6 +1079,10 @@ impl Chart {
             data_num(x.domain.1),
             data_num(y.domain.0),
             data_num(y.domain.1),
+            match self.y_scale {
+                YScale::Linear => "linear",
+                YScale::Log10 => "log10",
+            },
         ));
         out.line(format_args!(
             r#"<rect class="plot-area" x="{}" y="{}" width="{}" height="{}" fill="none" stroke="none"/>"#,
@@ -1739,6 +1847,83 @@ mod tests {
         let mut unique = labels.clone();
         unique.dedup();
         assert_eq!(unique, labels);
+    }
+
+    #[test]
+    fn a_log_axis_places_values_by_their_decade() {
+        // A shift of 0.5, 20 and 3000 arcsec, and one of zero, which has
+        // no place on a log axis (the values are the test's own).
+        let mut chart = Chart::new("shift", "x (d)", "shift (arcsec)");
+        chart.y_scale = YScale::Log10;
+        chart.series = vec![Series {
+            label: "7 days ahead".into(),
+            points: vec![
+                Point::new(1.0, 0.5),
+                Point::new(2.0, 20.0),
+                Point::new(3.0, 3000.0),
+                Point::new(4.0, 0.0),
+            ],
+            style: Style::nth(0, true),
+        }];
+        let svg = svg_of(&chart);
+        let doc = parse(&svg);
+        let plot = with_class(&doc, "plot")[0];
+        assert_eq!(plot.attribute("data-y-scale"), Some("log10"));
+        assert_eq!(num(plot, "data-skipped"), 1.0);
+        // Ticks on whole decades, labelled with the values.
+        let ticks = axis_ticks(&doc, "axis y");
+        let labels: Vec<&str> = ticks.iter().map(|t| tick_text(*t)).collect();
+        for tick in &ticks {
+            assert_eq!(num(*tick, "data-value").fract(), 0.0);
+        }
+        for wanted in ["0.1", "1", "10", "100", "1000"] {
+            assert!(labels.contains(&wanted), "{labels:?}");
+        }
+        // Each mark sits at log10 of its value: 20 is 1.30103 decades
+        // up, between the 10 and 100 ticks.
+        let frame = Frame::of(&doc);
+        let points = with_class(&doc, "point");
+        assert_eq!(points.len(), 3);
+        for (p, value) in points.iter().zip([0.5f64, 20.0, 3000.0]) {
+            assert!((num(*p, "data-y") - value.log10()).abs() < 1e-12);
+            let (_, want) = frame.px(num(*p, "data-x"), value.log10());
+            assert!((drawn_centre(*p).1 - want).abs() < 1e-6);
+        }
+    }
+
+    #[test]
+    fn a_time_axis_spans_the_data_not_a_whole_step_before_it() {
+        // 60 days of data starting 40 days after an MJD multiple of 50:
+        // enclosing ticks would start the axis 40 days early.
+        let mut chart = Chart::new("t", "date (UTC)", "e");
+        chart.x_axis = Axis::Time {
+            epoch_mjd: 61_040.0,
+        };
+        chart.series = vec![Series {
+            label: "e".into(),
+            points: vec![Point::new(0.0, 1.0), Point::new(60.0, 2.0)],
+            style: Style::nth(0, false),
+        }];
+        let svg = svg_of(&chart);
+        let doc = parse(&svg);
+        let frame = Frame::of(&doc);
+        // Padded by 5% of the span (3 days) on each side, no more.
+        assert!(
+            (frame.x_domain.0 - -3.0).abs() < 1e-9,
+            "{:?}",
+            frame.x_domain
+        );
+        assert!(
+            (frame.x_domain.1 - 63.0).abs() < 1e-9,
+            "{:?}",
+            frame.x_domain
+        );
+        let ticks = axis_ticks(&doc, "axis x");
+        assert!(ticks.len() >= 2);
+        for tick in &ticks {
+            let v = num(*tick, "data-value");
+            assert!(v >= frame.x_domain.0 && v <= frame.x_domain.1, "{v}");
+        }
     }
 
     #[test]

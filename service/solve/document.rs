@@ -97,6 +97,11 @@ pub struct SolutionDocument {
     /// Every observation's residual under the recommended model, in the
     /// order the fit saw them (empty when no model is recommended).
     pub residuals: Vec<ResidualDocument>,
+    /// The same under gravity alone, when another model is recommended
+    /// and gravity alone converged: side by side with `residuals` they
+    /// show the trend the extra terms absorb. Empty otherwise.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub gravity_residuals: Vec<ResidualDocument>,
 }
 
 /// One station's observations in the fit.
@@ -571,6 +576,11 @@ impl SolutionDocument {
             stations: station_use(&solution.observations),
             residuals: solution
                 .recommended_fit()
+                .map(|f| residuals(f, &solution.observations))
+                .unwrap_or_default(),
+            gravity_residuals: solution
+                .gravity_fit()
+                .filter(|_| ladder.recommended.is_some_and(|r| r != 0))
                 .map(|f| residuals(f, &solution.observations))
                 .unwrap_or_default(),
         }

@@ -169,6 +169,11 @@ impl Solution {
     pub fn recommended_fit(&self) -> Option<&OrbitFit> {
         self.ladder.recommended_model()?.converged_fit()
     }
+
+    /// Gravity alone's fit (the ladder's first model), if it converged.
+    pub fn gravity_fit(&self) -> Option<&OrbitFit> {
+        self.ladder.models.first()?.converged_fit()
+    }
 }
 
 /// The middle of `first..last`, moved to the nearest 0h TDB.

@@ -29,8 +29,8 @@ pub use error::StoreError;
 pub use index::{ObservationsApplied, SCHEMA_VERSION};
 pub use records::{
     content_key_bytes, BatchCheck, IndexedObservation, JournalEntry, ObjectState, ObservationEntry,
-    Origin, OverrideAction, OverrideRecord, OverrideState, SolutionRecord, SolutionSummary,
-    StoredObservation, Trigger,
+    Origin, OverrideAction, OverrideRecord, OverrideState, PlaceShift, SolutionRecord,
+    SolutionSummary, StoredObservation, TermPoint, Trigger,
 };
 
 use crate::alerts::event::{Acknowledgement, AlertRecord, Delivery, DeliveryAttempt};
@@ -80,8 +80,13 @@ pub trait Store: Send + Sync {
     fn add_override(&self, record: OverrideRecord) -> Result<ObservationsApplied, StoreError>;
     /// An object's decisions in the order they were made.
     fn overrides(&self, id: &str) -> Result<Vec<OverrideRecord>, StoreError>;
-    /// The residuals of a solution (an empty list for a failed fit).
-    fn residuals(&self, id: &str, seq: u64) -> Result<Option<serde_json::Value>, StoreError>;
+    /// The residual lists of a solution's document, by key (see
+    /// [`RESIDUAL_KEYS`]; none for a failed fit).
+    fn residuals(
+        &self,
+        id: &str,
+        seq: u64,
+    ) -> Result<Option<serde_json::Map<String, serde_json::Value>>, StoreError>;
     /// Journals one delivery attempt (fsync), then indexes it.
     fn record_attempt(&self, attempt: DeliveryAttempt) -> Result<(), StoreError>;
     /// Journals an acknowledgement (fsync), then indexes it.
@@ -348,14 +353,21 @@ impl Store for SledStore {
             .map_err(|e| self.reader.corrupt(span, &e.to_string()))
     }
 
-    fn residuals(&self, id: &str, seq: u64) -> Result<Option<serde_json::Value>, StoreError> {
+    fn residuals(
+        &self,
+        id: &str,
+        seq: u64,
+    ) -> Result<Option<serde_json::Map<String, serde_json::Value>>, StoreError> {
         Ok(self.solution(id, seq)?.map(|mut record| {
-            record
-                .document
-                .as_mut()
-                .and_then(|d| d.as_object_mut())
-                .and_then(|o| o.remove("residuals"))
-                .unwrap_or(serde_json::Value::Array(Vec::new()))
+            let document = record.document.as_mut().and_then(|d| d.as_object_mut());
+            document
+                .map(|o| {
+                    RESIDUAL_KEYS
+                        .iter()
+                        .filter_map(|k| Some((k.to_string(), o.remove(*k)?)))
+                        .collect()
+                })
+                .unwrap_or_default()
         }))
     }
 
@@ -411,6 +423,11 @@ impl Store for SledStore {
     }
 }
 
+/// The document's per-observation lists: the recommended model's
+/// residuals and, beside them, gravity alone's. Served on their own route,
+/// not with the record, whose size they would multiply.
+pub const RESIDUAL_KEYS: [&str; 2] = ["residuals", "gravity_residuals"];
+
 /// A solution's journal line as the record's JSON without its document's
 /// residuals. Only the record's and the document's top levels are taken
 /// apart; every value below is copied as the journal holds it, which is
@@ -429,7 +446,9 @@ fn without_residuals(line: &[u8]) -> Result<Vec<u8>, serde_json::Error> {
     if let Some(raw) = record.get("document").copied() {
         if raw.get() != "null" {
             let mut fields: Fields = serde_json::from_str(raw.get())?;
-            fields.remove("residuals");
+            for key in RESIDUAL_KEYS {
+                fields.remove(key);
+            }
             document = serde_json::value::to_raw_value(&fields)?;
             record.insert(Cow::Borrowed("document"), &document);
         }

@@ -298,6 +298,43 @@ pub struct SolutionSummary {
     pub normalized_rms: Option<f64>,
     /// Why there is no solution, when the fit failed.
     pub failure: Option<String>,
+    /// Gravity alone's normalised RMS: above 1 and rising while the
+    /// recommended model's stays near 1 is gravity failing to explain.
+    #[serde(default)]
+    pub gravity_normalized_rms: Option<f64>,
+    /// Every non-gravitational term the ladder measured, with the model
+    /// it was measured in (the verdict's `terms`).
+    #[serde(default)]
+    pub terms: Vec<TermPoint>,
+    /// How far the model-averaged place at each alert horizon moved from
+    /// the previous solution's prediction for the same instant (empty for
+    /// the first solution or when either could not predict).
+    #[serde(default)]
+    pub place_shifts: Vec<PlaceShift>,
+}
+
+/// One non-gravitational term of a solution, as the history plots it.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TermPoint {
+    /// "A1", "A2", "A3", ...
+    pub term: String,
+    /// The model the figure is from.
+    pub model: String,
+    /// au/d^2 at 1 au.
+    pub value: crate::solve::document::ValueSigma,
+    /// A term of the recommended model; the others are measured in a
+    /// richer model the data did not choose.
+    pub justified: bool,
+}
+
+/// The move of one predicted place between two solutions.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct PlaceShift {
+    /// Days after the new solution was made (an alert horizon).
+    pub days: f64,
+    pub shift_arcsec: f64,
+    /// The same in sigmas of the previous ellipse along the move.
+    pub shift_sigma: Option<f64>,
 }
 
 impl SolutionSummary {
@@ -324,6 +361,9 @@ impl SolutionSummary {
             rms_arcsec: None,
             normalized_rms: None,
             failure: Some(failure),
+            gravity_normalized_rms: None,
+            terms: Vec::new(),
+            place_shifts: Vec::new(),
         }
     }
 }

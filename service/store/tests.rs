@@ -297,6 +297,7 @@ fn documents_are_read_from_the_journal_and_residuals_apart() {
     r.document = Some(serde_json::json!({
         "recommended": "gravity",
         "residuals": [{"ra_cos_dec_arcsec": 0.25, "dec_arcsec": -0.5}],
+        "gravity_residuals": [{"ra_cos_dec_arcsec": 1.25, "dec_arcsec": -1.5}],
     }));
     store.add_solution(r.clone()).unwrap();
     assert_eq!(store.solution(&id, 1).unwrap(), Some(r));
@@ -304,8 +305,10 @@ fn documents_are_read_from_the_journal_and_residuals_apart() {
         serde_json::from_slice(&store.solution_bytes(&id, 1).unwrap().unwrap()).unwrap();
     assert_eq!(served["document"]["recommended"], "gravity");
     assert!(served["document"].get("residuals").is_none());
+    assert!(served["document"].get("gravity_residuals").is_none());
     let residuals = store.residuals(&id, 1).unwrap().unwrap();
-    assert_eq!(residuals[0]["dec_arcsec"], -0.5);
+    assert_eq!(residuals["residuals"][0]["dec_arcsec"], -0.5);
+    assert_eq!(residuals["gravity_residuals"][0]["dec_arcsec"], -1.5);
     assert!(store.solution(&id, 2).unwrap().is_none());
     assert!(store.residuals(&id, 2).unwrap().is_none());
 }

@@ -20,8 +20,8 @@ use crate::solve::document::SolutionDocument;
 use crate::solve::stored::model_fit;
 use crate::solve::{solve_records_in, SolveContext, SolveError, SolveRequest};
 use crate::store::{
-    all_observations, BatchCheck, IndexedObservation, ObjectState, OverrideState, SolutionRecord,
-    SolutionSummary, Store, StoreError, Trigger,
+    all_observations, BatchCheck, IndexedObservation, ObjectState, OverrideState, PlaceShift,
+    SolutionRecord, SolutionSummary, Store, StoreError, TermPoint, Trigger,
 };
 use crate::watch::clock::now_utc;
 
@@ -140,7 +140,35 @@ fn summary(
         rms_arcsec: rec.and_then(|m| m.rms_arcsec),
         normalized_rms: rec.and_then(|m| m.normalized_rms),
         failure: None,
+        gravity_normalized_rms: doc
+            .models
+            .first()
+            .filter(|m| m.converged)
+            .and_then(|m| m.normalized_rms),
+        terms: term_points(doc),
+        // Filled from the alert facts, which predict both solutions.
+        place_shifts: Vec::new(),
     }
+}
+
+/// The verdict's terms with a measured value, justified ones first.
+fn term_points(doc: &SolutionDocument) -> Vec<TermPoint> {
+    let Some(t) = &doc.terms else {
+        return Vec::new();
+    };
+    let justified = t.justified.iter().map(|s| (s, true));
+    let open = t.not_determined.iter().map(|s| (s, false));
+    justified
+        .chain(open)
+        .filter_map(|(s, justified)| {
+            Some(TermPoint {
+                term: s.term.clone(),
+                model: s.model.clone()?,
+                value: s.value?,
+                justified,
+            })
+        })
+        .collect()
 }
 
 /// Refits `object_id` and stores the record. Returns None when the fit was
@@ -295,6 +323,18 @@ pub fn refit(
     for a in &alerts {
         tracing::info!(object = %state.id, seq, alert = %a.id, "alert: {}", a.subject);
     }
+    let mut summary = summary;
+    summary.place_shifts = facts
+        .places
+        .iter()
+        .filter_map(|p| {
+            Some(PlaceShift {
+                days: p.days,
+                shift_arcsec: p.shift_arcsec?,
+                shift_sigma: p.shift_sigma,
+            })
+        })
+        .collect();
     let record = SolutionRecord {
         object_id: state.id.clone(),
         seq,

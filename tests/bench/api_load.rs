@@ -160,6 +160,11 @@ fn summary_of(doc: &Value, seq: u64, created_utc: &str) -> SolutionSummary {
         rms_arcsec: recommended.and_then(|m| m["rms_arcsec"].as_f64()),
         normalized_rms: recommended.and_then(|m| m["normalized_rms"].as_f64()),
         failure: None,
+        gravity_normalized_rms: doc["models"][0]["normalized_rms"].as_f64(),
+        // The list routes serve these as stored; their size is what
+        // matters here, and one solution's terms are a few dozen bytes.
+        terms: Vec::new(),
+        place_shifts: Vec::new(),
     }
 }
 

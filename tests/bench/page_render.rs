@@ -11,7 +11,8 @@
 //! (tests/reference/fixtures/synthetic/hyperbolic_outgassing), so the
 //! residual plots carry 610 points. The 200 summaries are invented: an
 //! arc growing night by night, 1/a and e tightening, the significance
-//! rising past the threshold.
+//! rising past the threshold, gravity alone's RMS growing, two terms
+//! tightening and the predicted places settling.
 //!
 //! Run: `cargo bench --bench page_render`. Prints the figures; the latest
 //! are in docs/performance.md.
@@ -21,7 +22,9 @@ use std::time::Instant;
 use perihelix::config::Config;
 use perihelix::ingest::ObjectId;
 use perihelix::solve::document::{SolutionDocument, ValueSigma};
-use perihelix::store::{ObjectState, SolutionRecord, SolutionSummary, Trigger};
+use perihelix::store::{
+    ObjectState, PlaceShift, SolutionRecord, SolutionSummary, TermPoint, Trigger,
+};
 
 const SOLUTIONS: u64 = 200;
 const ROUNDS: usize = 30;
@@ -73,6 +76,27 @@ fn main() {
             });
             s.ng_significance_sigma = Some(k / 4.0);
             s.normalized_rms = Some(if k < 60.0 { 1.0 + k / 60.0 } else { 0.9 });
+            s.gravity_normalized_rms = Some(1.0 + k / 60.0);
+            let term = |name: &str, value: f64, justified: bool| TermPoint {
+                term: name.into(),
+                model: "A1+A2 water-ice".into(),
+                value: ValueSigma {
+                    value,
+                    sigma: 2e-8 / k,
+                },
+                justified,
+            };
+            s.terms = vec![term("A1", 1e-8, k >= 60.0), term("A2", 2e-9, false)];
+            if seq > 1 {
+                s.place_shifts = [7.0, 30.0]
+                    .iter()
+                    .map(|days| PlaceShift {
+                        days: *days,
+                        shift_arcsec: days * 300.0 / (k * k),
+                        shift_sigma: Some(3.0 / k),
+                    })
+                    .collect();
+            }
             s
         })
         .collect();
