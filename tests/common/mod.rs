@@ -3,8 +3,10 @@
 //! tests/reference/make_synthetic_astrometry.py with rebound 5.2.2,
 //! jplephem 2.24 and pyerfa 2.0.1.5; see tests/reference/README.md), and
 //! the real loopback servers alerts are delivered to (smtp, webhook).
+//! The browser module drives a headless Chromium over the DevTools protocol.
 #![allow(dead_code)]
 
+pub mod browser;
 pub mod comet;
 pub mod daemon;
 pub mod prediction;
