@@ -13,7 +13,7 @@ use thiserror::Error;
 use crate::astro::constants::gm;
 use crate::astro::elements::{CometaryElements, ElementsError};
 use crate::astro::ephemeris::{Body, Ephemeris, EphemerisError, StateVector};
-use crate::astro::forces::Origin;
+use crate::astro::forces::{DistanceLaw, Origin};
 use crate::astro::propagation::{PropagationError, PropagationSettings, Trajectory};
 use crate::astro::time::Epoch;
 
@@ -199,10 +199,22 @@ pub fn distant_inverse_a(
     propagation: &PropagationSettings,
 ) -> Result<Option<DistantInverseA>, SolutionError> {
     let covariance = fit.covariance.as_ref().ok_or(SolutionError::NoCovariance)?;
-    let el = CometaryElements::from_state(&fit.state, fit.epoch, gm::SUN)?;
-    if let Some(a) = el.semi_major_axis_au() {
-        if a * (1.0 + el.e) < ORIGINAL_FUTURE_DISTANCE_AU {
-            return Ok(None);
+    // A radial push on the inverse-square law is, far from the planets, a
+    // change of the Sun's GM: the aphelion that decides whether the body
+    // ever leaves is the one under GM - A1. A short arc can fit an A1
+    // several times the Sun's pull (undetermined, but converged); under
+    // it the body never leaves, and integrating two centuries of a bound
+    // orbit to find that out took most of a minute.
+    let gm_far = match fit.model.nongrav() {
+        Some(ng) if ng.law == DistanceLaw::InverseSquare => gm::SUN - ng.a_au_per_day2[0],
+        _ => gm::SUN,
+    };
+    if gm_far > 0.0 {
+        let el = CometaryElements::from_state(&fit.state, fit.epoch, gm_far)?;
+        if let Some(a) = el.semi_major_axis_au() {
+            if a * (1.0 + el.e) < ORIGINAL_FUTURE_DISTANCE_AU {
+                return Ok(None);
+            }
         }
     }
     let sign = match direction {
@@ -377,4 +389,82 @@ pub fn trend_test(fit: &OrbitFit, observations: &[AstrometricObservation]) -> Op
         chi2,
         p_value: chi2_ln_sf(chi2, 2.0).exp(),
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::astro::forces::{ForceModel, FreeParameters, NonGravModel};
+    use crate::fit::lsq::Termination;
+    use crate::fit::test_support::WobblingSun;
+    use nalgebra::DVector;
+
+    /// An inbound hyperbola (q = 1.1 au, e = 3.2, 150 days before
+    /// perihelion; invented) with a radial inverse-square push `a1`.
+    fn inbound(a1: f64) -> OrbitFit {
+        let epoch = Epoch::from_tdb_jd(2_461_426.5, 0.0);
+        let state = CometaryElements {
+            q_au: 1.1,
+            e: 3.2,
+            i_rad: 1.1,
+            node_rad: 3.7,
+            peri_rad: 2.06,
+            tp: epoch.plus_days(150.0),
+            epoch,
+            gm_au3_per_day2: gm::SUN,
+        }
+        .to_state()
+        .expect("a valid conic");
+        let model = ForceModel::gravity()
+            .with_nongrav(NonGravModel::new(
+                DistanceLaw::InverseSquare,
+                [a1, 0.0, 0.0],
+                FreeParameters::new(true, false, false),
+            ))
+            .expect("a valid model");
+        let mut parameters: Vec<f64> = state
+            .position_au
+            .iter()
+            .chain(state.velocity_au_per_day.iter())
+            .copied()
+            .collect();
+        parameters.push(a1);
+        OrbitFit {
+            epoch,
+            state,
+            nongrav_au_per_day2: vec![(0, a1)],
+            model,
+            parameters: DVector::from_vec(parameters),
+            covariance: Some(DMatrix::identity(7, 7) * 1e-16),
+            chi2: 0.0,
+            dof: 1,
+            rms_arcsec: 0.0,
+            normalised_rms: 1.0,
+            residuals: Vec::new(),
+            iterations: 0,
+            outlier_passes: 0,
+            termination: Termination::Converged,
+        }
+    }
+
+    /// A short arc can fit A1 = -3.7 GM (a pull several times the Sun's,
+    /// as the demo's first week did): under GM - A1 the orbit is bound
+    /// inside 250 au, so there is no original 1/a. Known at once: the slow
+    /// way, integrating the bound orbit for two centuries, would end with
+    /// the farthest point reached (Some, below 250 au), not None.
+    #[test]
+    fn a_fitted_pull_stronger_than_the_suns_has_no_distant_inverse_a() {
+        let settings = PropagationSettings::default();
+        // v^2 = 2.5 GM at 4 au here (vis-viva with 1/a = -2), so any pull
+        // past GM_eff = 5 GM binds it; A1 = -7 GM (GM_eff = 8 GM) gives
+        // a = 5.3 au, aphelion under 11 au (vis-viva, hand arithmetic).
+        let pulled = inbound(-7.0 * gm::SUN);
+        let none = distant_inverse_a(&WobblingSun, &pulled, Direction::Original, &settings)
+            .expect("no failure");
+        assert!(none.is_none(), "{none:?}");
+        let free = distant_inverse_a(&WobblingSun, &inbound(0.0), Direction::Original, &settings)
+            .expect("no failure")
+            .expect("an unbound orbit leaves");
+        assert!(free.inverse_a_per_au.value < 0.0);
+    }
 }
