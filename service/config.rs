@@ -17,7 +17,9 @@ use crate::astro::time::{LeapSecondTable, TimeError};
 use crate::ingest::DesignationKey;
 use reader::{Source, TableReader};
 use stations::{in_range, positive};
-pub use stations::{load_stations, parse_stations, shipped_stations, Station, StationList};
+pub use stations::{
+    load_stations, parse_stations, shipped_stations, Station, StationList, SHIPPED_STATIONS_TOML,
+};
 
 /// One thing wrong with a configuration file.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize)]

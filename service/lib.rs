@@ -11,6 +11,8 @@
 //! - [`solve`]: from observation records to a fitted ladder of models and
 //!   its documents (JSON and text), for the command line and the daemon.
 //! - [`store`]: the daemon's journal (the truth) and its sled index.
+//! - [`transfer`]: `perihelix export` and `import`: the store as a stream of
+//!   JSON lines, for backups of a running daemon and moves.
 //! - [`watch`]: the incoming directory; taking a file into the store.
 //! - [`worker`]: refit scheduling and the refit job.
 //! - [`alerts`]: rules over each stored solution, the words of an alert,
@@ -19,6 +21,8 @@
 //! - [`page`]: the read-only pages the daemon serves, and their SVG plots.
 //! - [`daemon`]: `perihelix serve`, the stages wired together, shutdown,
 //!   systemd notification and metrics.
+//! - [`demo`]: `perihelix demo`, an invented visitor fed to the real
+//!   daemon night by night.
 // Constants are written with the digits their sources print (DE440 GM
 // values, integrator coefficients), even where f64 keeps fewer: the text is
 // then checkable against the source.
@@ -29,10 +33,12 @@ pub mod api;
 pub mod astro;
 pub mod config;
 pub mod daemon;
+pub mod demo;
 pub mod fit;
 pub mod ingest;
 pub mod page;
 pub mod solve;
 pub mod store;
+pub mod transfer;
 pub mod watch;
 pub mod worker;

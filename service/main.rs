@@ -176,6 +176,36 @@ enum Command {
         #[arg(long, short, default_value = "/etc/perihelix/config.toml")]
         config: PathBuf,
     },
+    /// Write the store (or one object of it) as JSON lines: a header, every
+    /// journal entry (observations, solutions with their alerts,
+    /// overrides, delivery attempts, acknowledgements) and an end line with
+    /// a digest. Safe while the daemon runs; see docs/backup.md.
+    Export {
+        /// The daemon's configuration file, which names the store.
+        #[arg(long, short, default_value = "/etc/perihelix/config.toml")]
+        config: PathBuf,
+        /// Only this object (an internal id or a designation).
+        #[arg(long)]
+        object: Option<String>,
+        /// Write to this file (whole or not at all) instead of standard
+        /// output.
+        #[arg(long, short)]
+        output: Option<PathBuf>,
+    },
+    /// Read an export into an empty store (refused if the store has
+    /// anything) and build its index; the daemon then starts with that
+    /// history.
+    Import {
+        /// The export file, or - for standard input.
+        file: PathBuf,
+        /// The configuration file naming the (empty) store to fill.
+        #[arg(long, short, default_value = "/etc/perihelix/config.toml")]
+        config: PathBuf,
+        /// Only check the file, every line as an import would; no store
+        /// is touched.
+        #[arg(long)]
+        check: bool,
+    },
     /// Show the history of solutions of an object: from the running
     /// daemon, or from the store when no daemon answers.
     History {
@@ -188,12 +218,23 @@ enum Command {
         #[arg(long)]
         json: bool,
     },
-    /// Run the whole job on embedded defaults with an invented scenario
-    /// (not available yet).
+    /// Run the whole job on embedded defaults with an invented visitor:
+    /// the real daemon is started in a directory of its own and fed the
+    /// nights one batch at a time; one line per solution, then the
+    /// history, the alert e-mails and the page's address.
     Demo {
         /// Where to put the demo's data (default: a new temporary directory).
         #[arg(long)]
         dir: Option<PathBuf>,
+        /// Leave the daemon and its page running at the end (Ctrl-C stops it).
+        #[arg(long)]
+        keep_serving: bool,
+        /// Fewer, larger batches of nights (fewer solutions, quicker).
+        #[arg(long)]
+        quick: bool,
+        /// Seed of the scenario's weather, cadence and noise.
+        #[arg(long, default_value_t = 20_270_620)]
+        seed: u64,
     },
     /// Send one test message on every configured alert channel (e-mail,
     /// webhook) and report each result.
@@ -207,14 +248,6 @@ enum Command {
         /// The configuration file.
         file: PathBuf,
     },
-}
-
-/// Exit code of a command that is not built yet: distinct from failures.
-const NOT_YET: u8 = 3;
-
-fn not_yet(command: &str, what: &str) -> Result<ExitCode> {
-    eprintln!("perihelix {command}: not available yet ({what} has not landed).");
-    Ok(ExitCode::from(NOT_YET))
 }
 
 fn main() -> ExitCode {
@@ -240,6 +273,16 @@ fn run(cli: Cli) -> Result<ExitCode> {
         Command::Serve { config } => serve(&config),
         Command::AlertTest { config } => alert_test(&config),
         Command::Rebuild { config } => rebuild(&config),
+        Command::Export {
+            config,
+            object,
+            output,
+        } => export(&config, object.as_deref(), output.as_deref()),
+        Command::Import {
+            file,
+            config,
+            check,
+        } => import(&file, &config, check),
         Command::History {
             object,
             config,
@@ -318,7 +361,17 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 json,
             },
         ),
-        Command::Demo { .. } => not_yet("demo", "the daemon"),
+        Command::Demo {
+            dir,
+            keep_serving,
+            quick,
+            seed,
+        } => demo(&perihelix::demo::DemoOptions {
+            dir,
+            keep_serving,
+            quick,
+            seed,
+        }),
     }
 }
 
@@ -385,6 +438,78 @@ fn rebuild(config: &Path) -> Result<ExitCode> {
     println!(
         "rebuilt the index from {entries} journal entries: {objects} objects, {observations} observations, {solutions} solutions"
     );
+    Ok(ExitCode::SUCCESS)
+}
+
+fn demo(options: &perihelix::demo::DemoOptions) -> Result<ExitCode> {
+    perihelix::demo::run(options, &mut std::io::stdout())?;
+    Ok(ExitCode::SUCCESS)
+}
+
+fn export(config: &Path, object: Option<&str>, output: Option<&Path>) -> Result<ExitCode> {
+    let cfg = Config::load(config)?;
+    let database = &cfg.directories.database;
+    let summary = match output {
+        Some(path) => perihelix::transfer::export_to_file(database, object, path)?,
+        None => perihelix::transfer::export(
+            database,
+            object,
+            &mut std::io::stdout().lock(),
+            "standard output",
+        )?,
+    };
+    let what = match &summary.exported {
+        perihelix::transfer::Exported::Store => "the store".to_string(),
+        perihelix::transfer::Exported::Object { object, .. } => format!("object {object}"),
+    };
+    eprintln!(
+        "exported {what}: {} journal entries ({}) from {}",
+        summary.entries,
+        summary.counts,
+        summary.journal.display()
+    );
+    if summary.left_out_last_line {
+        eprintln!("an entry still being written was left out: the next export has it");
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+fn import(file: &Path, config: &Path, check: bool) -> Result<ExitCode> {
+    let name = file.display().to_string();
+    let mut input: Box<dyn std::io::BufRead> = if name == "-" {
+        Box::new(std::io::stdin().lock())
+    } else {
+        let f = std::fs::File::open(file).with_context(|| name.clone())?;
+        Box::new(std::io::BufReader::with_capacity(1 << 16, f))
+    };
+    let source = if name == "-" { "standard input" } else { &name };
+    if check {
+        let checked = perihelix::transfer::check(&mut input, source)?;
+        println!(
+            "{source}: a whole export of {} journal entries ({})",
+            checked.entries, checked.counts
+        );
+        return Ok(ExitCode::SUCCESS);
+    }
+    let cfg = Config::load(config)?;
+    let s = perihelix::transfer::import(&cfg.directories.database, &mut input, source)?;
+    println!(
+        "imported {} journal entries ({}) into {}: {} objects, {} observations, {} solutions",
+        s.checked.entries,
+        s.checked.counts,
+        s.journal.display(),
+        s.objects,
+        s.observations,
+        s.solutions
+    );
+    if s.checked.header.software_version != perihelix::transfer::SOFTWARE_VERSION {
+        eprintln!(
+            "note: written by perihelix {}, imported by {}: an export of this store differs \
+             from the file in its header line",
+            s.checked.header.software_version,
+            perihelix::transfer::SOFTWARE_VERSION
+        );
+    }
     Ok(ExitCode::SUCCESS)
 }
 

@@ -115,13 +115,6 @@ fn ingest_lists_rejected_lines_and_keeps_good_ones() {
     assert!(stdout.contains("night.psv:5"), "{stdout}");
 }
 
-#[test]
-fn commands_not_built_yet_say_so_and_fail() {
-    let out = perihelix().args(["demo"]).output().unwrap();
-    assert_eq!(out.status.code(), Some(3));
-    assert!(String::from_utf8_lossy(&out.stderr).contains("not available yet"));
-}
-
 /// The daemon's commands name the configuration they could not read.
 #[test]
 fn daemon_commands_need_a_readable_configuration() {
@@ -455,12 +448,4 @@ fn every_option_and_argument_has_help_text() {
             );
         }
     }
-    // Commands not built yet say so in the list (issue 12, point 7).
-    let out = perihelix().arg("--help").output().expect("the binary runs");
-    let text = String::from_utf8_lossy(&out.stdout);
-    let demo = text
-        .lines()
-        .find(|l| l.trim_start().starts_with("demo "))
-        .expect("demo is listed");
-    assert!(demo.contains("(not available yet)"), "{demo}");
 }
