@@ -449,3 +449,19 @@ fn every_option_and_argument_has_help_text() {
         }
     }
 }
+
+/// A second demo in the same directory would find its nights already
+/// stored and wait for solutions that never come: it is refused at once.
+#[test]
+fn the_demo_refuses_a_directory_in_use() {
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(dir.path().join("left-over.txt"), "x").unwrap();
+    let out = perihelix()
+        .args(["demo", "--dir"])
+        .arg(dir.path())
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(1));
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(stderr.contains("is not empty"), "{stderr}");
+}

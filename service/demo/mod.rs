@@ -39,6 +39,8 @@ pub enum DemoError {
     Daemon(String),
     #[error("the API: {0}")]
     Api(String),
+    #[error("{0} is not empty: give the demo a new directory (or none, for a temporary one)")]
+    NotEmpty(PathBuf),
 }
 
 fn io(path: &Path) -> impl FnOnce(std::io::Error) -> DemoError + '_ {
@@ -95,6 +97,11 @@ pub fn run(options: &DemoOptions, out: &mut dyn Write) -> Result<DemoOutcome, De
                 .map_or(0, |d| d.as_secs())
         )),
     };
+    // A store from an earlier run would take the nights as duplicates and
+    // no solution would come: the demo wants a directory of its own.
+    if std::fs::read_dir(&dir).is_ok_and(|mut d| d.next().is_some()) {
+        return Err(DemoError::NotEmpty(dir));
+    }
     let config = write_configuration(&dir)?;
     let cfg = Config::load(&config).map_err(|e| DemoError::Daemon(e.to_string()))?;
     let ctx =
