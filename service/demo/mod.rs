@@ -217,12 +217,30 @@ pub fn run(options: &DemoOptions, out: &mut dyn Write) -> Result<DemoOutcome, De
     let page_url = format!("http://{}/objects/{}", daemon.address, object.id);
     say(
         out,
-        format_args!(
-            "\nThe page: {page_url}\nThe JSON API: http://{}/v1/objects\nDone in {:.0} s.\n",
-            daemon.address,
-            started.elapsed().as_secs_f64()
-        ),
+        format_args!("\nDone in {:.0} s.\n", started.elapsed().as_secs_f64()),
     );
+    if options.keep_serving {
+        say(
+            out,
+            format_args!(
+                "The page: {page_url}\nThe JSON API: http://{}/v1/objects\n\
+                 The daemon keeps serving; stop it with Ctrl-C.\n",
+                daemon.address
+            ),
+        );
+    } else {
+        say(
+            out,
+            format_args!(
+                "The daemon has stopped; its store stays in {}. To see the page, run the demo \
+                 with --keep-serving, or serve this store again:\n  perihelix serve --config {}\n\
+                 and open /objects/{} on the address it logs (a free port each time).\n",
+                dir.display(),
+                config.display(),
+                object.id
+            ),
+        );
+    }
     let outcome = DemoOutcome {
         dir: dir.clone(),
         config: config.clone(),
@@ -230,13 +248,6 @@ pub fn run(options: &DemoOptions, out: &mut dyn Write) -> Result<DemoOutcome, De
         page_url,
     };
     if options.keep_serving {
-        say(
-            out,
-            format_args!(
-                "The daemon keeps serving; stop it with Ctrl-C. (Again later: perihelix serve --config {})\n",
-                config.display()
-            ),
-        );
         daemon.wait()?;
     } else {
         daemon.stop()?;
