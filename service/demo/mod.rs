@@ -534,7 +534,10 @@ impl Daemon {
     }
 
     /// SIGTERM, as systemd stops it, and a bounded wait.
-    fn stop(mut self) -> Result<(), DemoError> {
+    fn stop(&mut self) -> Result<(), DemoError> {
+        if let Ok(Some(_)) = self.child.try_wait() {
+            return Ok(());
+        }
         let pid = self.child.id().to_string();
         let _ = Command::new("kill").args(["-s", "TERM", &pid]).status();
         let deadline = Instant::now() + Duration::from_secs(60);
@@ -551,11 +554,19 @@ impl Daemon {
         ))
     }
 
-    fn wait(mut self) -> Result<(), DemoError> {
+    fn wait(&mut self) -> Result<(), DemoError> {
         self.child
             .wait()
             .map(|_| ())
             .map_err(|e| DemoError::Daemon(e.to_string()))
+    }
+}
+
+/// A demo that fails part-way (a fit that never comes, an API error)
+/// must not leave its daemon running behind it.
+impl Drop for Daemon {
+    fn drop(&mut self) {
+        let _ = self.stop();
     }
 }
 
