@@ -2,11 +2,12 @@
 //! the project's own propagator and observation model. Pure: the
 //! ephemeris, the time scales and a seed in, observation rows out.
 //!
-//! The body is strongly hyperbolic (e = 3.2) with a water-ice outgassing
-//! push (A1 = 6e-8 au/d^2) that only switches on as it nears the Sun:
-//! found about five months before perihelion at about 4 au, where gravity
-//! alone explains everything, and followed in to 1.5 au, where it no
-//! longer does. The stations are the shipped invented ones; each night a
+//! The body is strongly hyperbolic (e = 3.2, q = 1.1 au) with a
+//! water-ice outgassing push (A1 = 1e-7 au/d^2) that only switches on as
+//! it nears the Sun: found five months before perihelion at about 4.3 au
+//! (hyperbolic Kepler equation, hand arithmetic), where gravity alone
+//! explains everything, and followed in to 1.1 au, where it no longer
+//! does. The stations are the shipped invented ones; each night a
 //! station may be clouded out, or kept off the target by a bright Moon
 //! near it; a tracklet is three or four exposures twelve minutes apart,
 //! with Gaussian noise at the station's stated sigma and a handful of
