@@ -77,26 +77,10 @@ fn averaged_predictions_cover_the_truth() {
     );
     let c = PredictionCalibration::of(&body, &results);
     println!(
-        "{} draws from {station} at {}: averaged inside {}/{} = {:.3} (band [{:.3}, {:.3}]), \
-         mean d2 {:.2}; recommended alone inside {}/{} = {:.3}, mean d2 {:.2}; \
-         {} alone inside {}/{}; mean weight of the recommended {:.2}; recommended: {}; {:.0} s",
+        "{} draws from {station} at {}: {}; {:.0} s",
         c.draws,
         point.time.utc().to_iso8601(0),
-        c.averaged.inside,
-        c.averaged.draws,
-        c.averaged.fraction(),
-        c.band.0,
-        c.band.1,
-        c.averaged.mean_d2,
-        c.recommended.inside,
-        c.recommended.draws,
-        c.recommended.fraction(),
-        c.recommended.mean_d2,
-        c.truth_structure_name,
-        c.truth_structure.inside,
-        c.truth_structure.draws,
-        c.mean_recommended_weight,
-        c.recommended_text(),
+        c.summary_line(),
         started.elapsed().as_secs_f64()
     );
     assert!(

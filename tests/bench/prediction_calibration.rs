@@ -210,26 +210,7 @@ fn main() {
     doc.push('\n');
     doc.push_str(FOOTER);
 
-    println!(
-        "averaged {}/{} = {:.3} (band [{:.3}, {:.3}]) mean d2 {:.2}; recommended {}/{} = {:.3} \
-         mean d2 {:.2}; {} {}/{} mean d2 {:.2}; mean weight {:.2}; {}; {total:.0} s",
-        c.averaged.inside,
-        c.averaged.draws,
-        c.averaged.fraction(),
-        c.band.0,
-        c.band.1,
-        c.averaged.mean_d2,
-        c.recommended.inside,
-        c.recommended.draws,
-        c.recommended.fraction(),
-        c.recommended.mean_d2,
-        c.truth_structure_name,
-        c.truth_structure.inside,
-        c.truth_structure.draws,
-        c.truth_structure.mean_d2,
-        c.mean_recommended_weight,
-        c.recommended_text(),
-    );
+    println!("{}; {total:.0} s", c.summary_line());
     if let Err(e) = common::write_section(&out, "prediction_calibration", &doc) {
         eprintln!("cannot write {}: {e}", out.display());
         std::process::exit(1);

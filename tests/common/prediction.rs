@@ -396,6 +396,32 @@ impl PredictionCalibration {
         (self.band.0..=self.band.1).contains(&self.averaged.fraction())
     }
 
+    /// The figures in one line, as the test and the bench print them.
+    pub fn summary_line(&self) -> String {
+        format!(
+            "averaged inside {}/{} = {:.3} (band [{:.3}, {:.3}]), mean d2 {:.2}; \
+             recommended alone inside {}/{} = {:.3}, mean d2 {:.2}; \
+             {} alone inside {}/{}, mean d2 {:.2}; mean weight of the recommended {:.2}; \
+             recommended: {}",
+            self.averaged.inside,
+            self.averaged.draws,
+            self.averaged.fraction(),
+            self.band.0,
+            self.band.1,
+            self.averaged.mean_d2,
+            self.recommended.inside,
+            self.recommended.draws,
+            self.recommended.fraction(),
+            self.recommended.mean_d2,
+            self.truth_structure_name,
+            self.truth_structure.inside,
+            self.truth_structure.draws,
+            self.truth_structure.mean_d2,
+            self.mean_recommended_weight,
+            self.recommended_text(),
+        )
+    }
+
     /// "A1 inverse-square 7, A1 water-ice 5".
     pub fn recommended_text(&self) -> String {
         self.recommended_counts
