@@ -32,24 +32,7 @@ for candidate in chromium chromium-browser; do
 done
 
 how="Install Debian's chromium package (apt-get install chromium) or set PERIHELIX_CHROMIUM to a Chromium or Chrome binary."
-if ! command -v apt-get >/dev/null 2>&1; then
-    echo "no chromium found and no apt-get to install it. $how" >&2
-    exit 1
-fi
-sudo=()
-if [[ "$(id -u)" != 0 ]]; then
-    if command -v sudo >/dev/null 2>&1; then
-        sudo=(sudo -n)
-    else
-        echo "no chromium found, and installing it needs root. $how" >&2
-        exit 1
-    fi
-fi
-
-echo "installing Debian's chromium package (once per machine)"
-export DEBIAN_FRONTEND=noninteractive
-"${sudo[@]}" apt-get update -qq
-"${sudo[@]}" apt-get install -y -qq --no-install-recommends chromium >/dev/null
+bash "$(dirname "${BASH_SOURCE[0]}")/apt-install.sh" chromium chromium "$how"
 
 if works /usr/bin/chromium; then
     echo "installed: $(/usr/bin/chromium --version)"

@@ -25,24 +25,7 @@ if path="$(command -v systemd-analyze)" && works "$path"; then
 fi
 
 how="Install Debian's systemd package (apt-get install systemd), which ships systemd-analyze."
-if ! command -v apt-get >/dev/null 2>&1; then
-    echo "no systemd-analyze found and no apt-get to install it. $how" >&2
-    exit 1
-fi
-sudo=()
-if [[ "$(id -u)" != 0 ]]; then
-    if command -v sudo >/dev/null 2>&1; then
-        sudo=(sudo -n)
-    else
-        echo "no systemd-analyze found, and installing it needs root. $how" >&2
-        exit 1
-    fi
-fi
-
-echo "installing Debian's systemd package for systemd-analyze (once per machine)"
-export DEBIAN_FRONTEND=noninteractive
-"${sudo[@]}" apt-get update -qq
-"${sudo[@]}" apt-get install -y -qq --no-install-recommends systemd >/dev/null
+bash "$(dirname "${BASH_SOURCE[0]}")/apt-install.sh" systemd systemd-analyze "$how"
 
 if works /usr/bin/systemd-analyze; then
     echo "installed: /usr/bin/systemd-analyze ($(/usr/bin/systemd-analyze --version | head -n 1))"
