@@ -349,17 +349,7 @@ fn nights_arrive_and_each_quiet_period_gives_one_solution() {
         .count();
     assert!(converged > 0);
     assert_eq!(points, converged);
-    for id in [
-        "plot-e",
-        "plot-ng",
-        "plot-rms",
-        "plot-terms",
-        "plot-shift",
-        "plot-residuals-ra",
-        "plot-gravity-residuals-ra",
-        "plot-residuals-dec",
-        "plot-gravity-residuals-dec",
-    ] {
+    for id in common::daemon::OUTGASSING_PAGE_PLOTS {
         roxmltree::Document::parse(&figure(id)).expect("well-formed SVG");
     }
     let status = d.stop(Duration::from_secs(30));

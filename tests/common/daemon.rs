@@ -34,6 +34,24 @@ pub fn poll_until<T>(
     }
 }
 
+/// The plots the object page of the invented outgassing body
+/// (tests/reference/fixtures/synthetic/hyperbolic_outgassing) must have
+/// once it has two solutions or more: the terms and the shifts have data
+/// from the second solution on, and the gravity-only residuals are shown
+/// because an outgassing model is recommended from the half arc on.
+pub const OUTGASSING_PAGE_PLOTS: [&str; 10] = [
+    "plot-inverse-a",
+    "plot-e",
+    "plot-ng",
+    "plot-rms",
+    "plot-terms",
+    "plot-shift",
+    "plot-residuals-ra",
+    "plot-gravity-residuals-ra",
+    "plot-residuals-dec",
+    "plot-gravity-residuals-dec",
+];
+
 /// A daemon's directories and configuration.
 pub struct DaemonDir {
     pub root: tempfile::TempDir,
