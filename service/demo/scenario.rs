@@ -19,7 +19,9 @@ use crate::astro::constants::gm;
 use crate::astro::elements::CometaryElements;
 use crate::astro::ephemeris::{Body, Ephemeris};
 use crate::astro::forces::{DistanceLaw, ForceModel, FreeParameters, NonGravModel};
-use crate::astro::observer::{altitude_rad, observer_barycentric_state, zenith_gcrs};
+use crate::astro::observer::{
+    altitude_rad, observer_barycentric_state, zenith_gcrs, ObserverPosition,
+};
 use crate::astro::propagation::{PropagationSettings, Trajectory};
 use crate::astro::time::{Epoch, ScaledInstant, TimeScales, UtcTime};
 use crate::config::StationList;
@@ -148,11 +150,15 @@ pub fn scenario(
         .map_err(time_error)?
         .utc();
     let nights = (LAST_DAY - FIRST_DAY) as i64;
+    let sites = stations
+        .iter()
+        .map(|s| Ok((s, station_position(stations, &s.code)?)))
+        .collect::<Result<Vec<_>, crate::solve::input::StationError>>()
+        .map_err(|e| DemoError::Scenario(e.to_string()))?;
     for n in 0..=nights {
         let day = first_night.mjd() + n;
-        for station in stations.iter() {
-            let Some((best, direction)) =
-                best_time(ephemeris, scales, &trajectory, stations, &station.code, day)?
+        for (station, position) in &sites {
+            let Some((best, direction)) = best_time(ephemeris, scales, &trajectory, position, day)?
             else {
                 continue;
             };
@@ -180,13 +186,8 @@ pub fn scenario(
                 first_mjd.get_or_insert(utc.mjd() as f64 + utc.seconds_of_day() / 86_400.0);
                 let observer = ObserverAt {
                     tdb: at.tdb(),
-                    state: observer_barycentric_state(
-                        &station_position(stations, &station.code)
-                            .map_err(|e| DemoError::Scenario(e.to_string()))?,
-                        &at,
-                        ephemeris,
-                    )
-                    .map_err(|e| DemoError::Scenario(e.to_string()))?,
+                    state: observer_barycentric_state(position, &at, ephemeris)
+                        .map_err(|e| DemoError::Scenario(e.to_string()))?,
                 };
                 let place = predict(&trajectory, ephemeris, &observer, false)
                     .map_err(|e| DemoError::Scenario(format!("the invented place: {e}")))?;
@@ -246,23 +247,20 @@ fn time_error(e: crate::astro::time::TimeError) -> DemoError {
 }
 
 /// The half-hour sample of UTC day `mjd` when the body stands highest at
-/// `code` with the Sun well down, if any reaches [`BODY_ABOVE_DEG`], with
+/// `position` with the Sun well down, if any reaches [`BODY_ABOVE_DEG`], with
 /// the body's geocentric direction then.
 fn best_time(
     ephemeris: &dyn Ephemeris,
     scales: &TimeScales,
     trajectory: &Trajectory,
-    stations: &StationList,
-    code: &str,
+    position: &ObserverPosition,
     mjd: i64,
 ) -> Result<Option<(ScaledInstant, Vector3<f64>)>, DemoError> {
-    let position =
-        station_position(stations, code).map_err(|e| DemoError::Scenario(e.to_string()))?;
     let mut best: Option<(f64, ScaledInstant, Vector3<f64>)> = None;
     for half_hour in 0..48 {
         let utc = UtcTime::from_mjd_seconds(mjd, half_hour as f64 * 1800.0).map_err(time_error)?;
         let at = scales.resolve_utc(&utc, None).map_err(time_error)?;
-        let Some(zenith) = zenith_gcrs(&position, &at) else {
+        let Some(zenith) = zenith_gcrs(position, &at) else {
             return Ok(None);
         };
         let earth = ephemeris
