@@ -957,33 +957,20 @@ impl Chart {
         out.line(format_args!(
             r#"<g class="axis x" font-size="{TICK_PX}" fill="{AXIS_COLOUR}" stroke="{AXIS_COLOUR}">"#
         ));
-        out.line(format_args!(
-            r#"<line class="axis-line" x1="{}" y1="{}" x2="{}" y2="{}"/>"#,
-            Px(l),
-            Px(b),
-            Px(r),
-            Px(b)
-        ));
+        write_axis_line(out, (l, b), (r, b));
         for (tick, label) in x.ticks.iter().zip(&x.labels) {
             let px = scale(*tick, x.domain, layout.x_range());
-            out.line(format_args!(
-                r#"<g class="tick" data-value="{}"><line x1="{}" y1="{}" x2="{}" y2="{}"/><text x="{}" y="{}" text-anchor="middle" stroke="none">{}</text></g>"#,
-                data_num(*tick),
-                Px(px),
-                Px(b),
-                Px(px),
-                Px(b + 5.0),
-                Px(px),
-                Px(b + 17.0),
-                esc(label)
-            ));
+            write_tick(
+                out,
+                *tick,
+                (px, b),
+                (px, b + 5.0),
+                (px, b + 17.0),
+                "middle",
+                label,
+            );
         }
-        out.line(format_args!(
-            r#"<text class="axis-label" x="{}" y="{}" font-size="{LABEL_PX}" text-anchor="middle" stroke="none">{}</text>"#,
-            Px((l + r) / 2.0),
-            Px(b + 36.0),
-            esc(&self.x_label)
-        ));
+        write_axis_label(out, ((l + r) / 2.0, b + 36.0), &self.x_label);
         out.line(format_args!("</g>"));
     }
 
@@ -996,34 +983,21 @@ impl Chart {
             r#"<g class="axis x2" font-size="{TICK_PX}" fill="{AXIS_COLOUR}" stroke="{AXIS_COLOUR}" data-origin="{}">"#,
             data_num(secondary.origin)
         ));
-        out.line(format_args!(
-            r#"<line class="axis-line" x1="{}" y1="{}" x2="{}" y2="{}"/>"#,
-            Px(l),
-            Px(t),
-            Px(r),
-            Px(t)
-        ));
+        write_axis_line(out, (l, t), (r, t));
         for tick in &x.ticks {
             let px = scale(*tick, x.domain, layout.x_range());
-            let value = tick - secondary.origin;
-            out.line(format_args!(
-                r#"<g class="tick" data-value="{}"><line x1="{}" y1="{}" x2="{}" y2="{}"/><text x="{}" y="{}" text-anchor="middle" stroke="none">{}</text></g>"#,
-                data_num(*tick),
-                Px(px),
-                Px(t),
-                Px(px),
-                Px(t - 5.0),
-                Px(px),
-                Px(t - 8.0),
-                esc(&secondary_label(value, x.decimals))
-            ));
+            let label = secondary_label(tick - secondary.origin, x.decimals);
+            write_tick(
+                out,
+                *tick,
+                (px, t),
+                (px, t - 5.0),
+                (px, t - 8.0),
+                "middle",
+                &label,
+            );
         }
-        out.line(format_args!(
-            r#"<text class="axis-label" x="{}" y="{}" font-size="{LABEL_PX}" text-anchor="middle" stroke="none">{}</text>"#,
-            Px((l + r) / 2.0),
-            Px(t - 24.0),
-            esc(&secondary.label)
-        ));
+        write_axis_label(out, ((l + r) / 2.0, t - 24.0), &secondary.label);
         out.line(format_args!("</g>"));
     }
 
@@ -1032,26 +1006,18 @@ impl Chart {
         out.line(format_args!(
             r#"<g class="axis y" font-size="{TICK_PX}" fill="{AXIS_COLOUR}" stroke="{AXIS_COLOUR}">"#
         ));
-        out.line(format_args!(
-            r#"<line class="axis-line" x1="{}" y1="{}" x2="{}" y2="{}"/>"#,
-            Px(l),
-            Px(b),
-            Px(l),
-            Px(t)
-        ));
+        write_axis_line(out, (l, b), (l, t));
         for (tick, label) in y.ticks.iter().zip(&y.labels) {
             let py = scale(*tick, y.domain, layout.y_range());
-            out.line(format_args!(
-                r#"<g class="tick" data-value="{}"><line x1="{}" y1="{}" x2="{}" y2="{}"/><text x="{}" y="{}" text-anchor="end" stroke="none">{}</text></g>"#,
-                data_num(*tick),
-                Px(l - 5.0),
-                Px(py),
-                Px(l),
-                Px(py),
-                Px(l - 8.0),
-                Px(py + 4.0),
-                esc(label)
-            ));
+            write_tick(
+                out,
+                *tick,
+                (l - 5.0, py),
+                (l, py),
+                (l - 8.0, py + 4.0),
+                "end",
+                label,
+            );
         }
         // Rotated a quarter turn: the text's (x, y) is the page's (y, -x).
         out.line(format_args!(
@@ -1124,6 +1090,51 @@ impl Chart {
         }
         out.line(format_args!("</g>"));
     }
+}
+
+/// An axis' own line.
+fn write_axis_line(out: &mut Out, (x1, y1): (f64, f64), (x2, y2): (f64, f64)) {
+    out.line(format_args!(
+        r#"<line class="axis-line" x1="{}" y1="{}" x2="{}" y2="{}"/>"#,
+        Px(x1),
+        Px(y1),
+        Px(x2),
+        Px(y2)
+    ));
+}
+
+/// One tick of an axis: its mark from `from` to `to`, its label anchored
+/// at `text`, and the value it stands for.
+fn write_tick(
+    out: &mut Out,
+    value: f64,
+    from: (f64, f64),
+    to: (f64, f64),
+    text: (f64, f64),
+    anchor: &str,
+    label: &str,
+) {
+    out.line(format_args!(
+        r#"<g class="tick" data-value="{}"><line x1="{}" y1="{}" x2="{}" y2="{}"/><text x="{}" y="{}" text-anchor="{anchor}" stroke="none">{}</text></g>"#,
+        data_num(value),
+        Px(from.0),
+        Px(from.1),
+        Px(to.0),
+        Px(to.1),
+        Px(text.0),
+        Px(text.1),
+        esc(label)
+    ));
+}
+
+/// A horizontal axis' label, centred on `at`.
+fn write_axis_label(out: &mut Out, (x, y): (f64, f64), label: &str) {
+    out.line(format_args!(
+        r#"<text class="axis-label" x="{}" y="{}" font-size="{LABEL_PX}" text-anchor="middle" stroke="none">{}</text>"#,
+        Px(x),
+        Px(y),
+        esc(label)
+    ));
 }
 
 fn secondary_label(value: f64, decimals: Option<usize>) -> String {
